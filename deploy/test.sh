@@ -48,6 +48,8 @@ unformatted=$(gofmt -l $(git ls-files '*.go' 2>/dev/null || find . -name '*.go' 
 if [ -n "$unformatted" ]; then echo "gofmt wants to rewrite: $unformatted" >&2; exit 1; fi
 log "go vet"
 go vet ./...
+log "systemd unit"
+./deploy/verify-unit.sh
 
 # --- fuzzing (brief; deploy/faults.sh runs each target longer) ------------------
 log "fuzzing payload decoders, $FUZZTIME each"

@@ -34,9 +34,13 @@ type command struct {
 func commands() map[string]command {
 	return map[string]command{
 		"version":      {"print the version", runVersion},
+		"alerts":       {"list, retry or test alert deliveries", runAlerts},
 		"check-config": {"validate a configuration file and print a summary", runCheckConfig},
 		"run":          {"run the daemon: subscribe, store, detect, alert", runDaemon},
+		"replay":       {"run recorded files through the detectors and print the season", runReplay},
 		"column":       {"compute column metrics and state for one profile", runColumn},
+		"export":       {"export stored readings, column records or events from InfluxDB", runExport},
+		"demo":         {"run a simulated season end to end on this machine", runDemo},
 	}
 }
 

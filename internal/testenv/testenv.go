@@ -210,6 +210,11 @@ func StartMosquitto(t testing.TB, o MosquittoOptions) *Mosquitto {
 			fmt.Fprintf(&conf, "require_certificate true\n")
 		}
 	}
+	if os.Geteuid() == 0 && !strings.Contains(o.Extra, "user ") {
+		// Started as root, Mosquitto 2 drops to the "mosquitto" user and could then not
+		// read this test's 0700 temporary directory (persistence, certificates).
+		conf.WriteString("user root\n")
+	}
 	conf.WriteString(o.Extra)
 	cfgPath := filepath.Join(dir, "mosquitto.conf")
 	if err := os.WriteFile(cfgPath, []byte(conf.String()), 0o644); err != nil {

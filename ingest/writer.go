@@ -1,0 +1,504 @@
+package ingest
+
+import (
+	"context"
+	"crypto/tls"
+	"errors"
+	"fmt"
+	"log/slog"
+	"math/rand/v2"
+	"net/http"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+
+	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
+	"github.com/influxdata/influxdb-client-go/v2/api"
+	ihttp "github.com/influxdata/influxdb-client-go/v2/api/http"
+)
+
+// Measurement and schema of stored readings:
+//
+//	water_temperature,depth_m=<depth>,sensor=<sensor>,site=<site> qc=<flags>i,temp_c=<°C> <time ns>
+//
+// depth_m is the depth formatted canonically (strconv.FormatFloat(d, 'f', -1, 64):
+// 5, 0.5, 12.25), sensor is present only when the reading names one, qc is the
+// QC bit set (reading.go) as an integer.
+//
+// InfluxDB keeps one point per series (measurement + tag set) and timestamp: a
+// second write with the same tags and time REPLACES the field values. Exact
+// duplicates are therefore never written twice (the committer drops them), and
+// a reading with the same site, depth, sensor and time but a different value
+// replaces the stored one, flagged QCDuplicate.
+const (
+	MeasurementReadings = "water_temperature"
+	DefaultBatchSize    = 5000
+	defaultWriteTimeout = 10 * time.Second
+	defaultBackoffMin   = 250 * time.Millisecond
+	defaultBackoffMax   = 30 * time.Second
+	pingEvery           = 10 * time.Second
+	// maxSplitRequests bounds the extra requests spent isolating the points a
+	// database refused in one batch; beyond it the rest of a refused part is
+	// dead-lettered whole.
+	maxSplitRequests = 64
+)
+
+// WriterOptions configure NewWriter.
+type WriterOptions struct {
+	Spool *Spool
+	// URL of the database (http://127.0.0.1:8086). InfluxDB 1.8: Bucket is
+	// "database/retention" and Token "user:password" (":" without auth), Org is
+	// ignored. InfluxDB 2.x/3.x: Org, Bucket and an API token.
+	URL, Org, Bucket, Token string
+	TLS                     *tls.Config
+	// Timeout of one write request (<= 0: 10 s).
+	Timeout time.Duration
+	// BatchSize is the number of points per request (<= 0: 5000).
+	BatchSize int
+	// BackoffMin and BackoffMax bound the retry delay (exponential, full
+	// jitter; defaults 250 ms and 30 s).
+	BackoffMin, BackoffMax time.Duration
+	HTTPClient             *http.Client
+	Logger                 *slog.Logger
+	Metrics                *Metrics
+}
+
+// Writer moves spooled readings and derived points into InfluxDB, in sequence
+// order, through the blocking write API of influxdb-client-go. A failed
+// request is retried with exponential backoff and jitter (never dropped);
+// points the database refuses as bad data (HTTP 400, 422) are isolated by
+// splitting the batch and go to the dead-letter bucket, so one bad point
+// never blocks the queue.
+type Writer struct {
+	o      WriterOptions
+	spool  *Spool
+	client influxdb2.Client
+	api    api.WriteAPIBlocking
+	log    *slog.Logger
+	m      *Metrics
+	wake   chan struct{}
+
+	// run-loop state (one goroutine at a time: Run, then Flush)
+	cursor  uint64
+	dcursor uint64
+	entries []Entry
+	derived []DerivedPoint
+	buf     []byte
+	rl      rateLog
+
+	mu        sync.Mutex
+	reachable bool
+	known     bool // reachable has been determined
+	lastErr   error
+	lastOK    time.Time
+}
+
+// NewWriter returns a writer that resumes at the spool's cursors.
+func NewWriter(o WriterOptions) (*Writer, error) {
+	if o.URL == "" {
+		return nil, errors.New("writer: no database URL")
+	}
+	if o.Bucket == "" {
+		return nil, errors.New("writer: no bucket (InfluxDB 1.8: \"database/retention\")")
+	}
+	if o.Timeout <= 0 {
+		o.Timeout = defaultWriteTimeout
+	}
+	if o.BatchSize <= 0 {
+		o.BatchSize = DefaultBatchSize
+	}
+	if o.BackoffMin <= 0 {
+		o.BackoffMin = defaultBackoffMin
+	}
+	if o.BackoffMax <= 0 {
+		o.BackoffMax = defaultBackoffMax
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	if o.Metrics == nil {
+		o.Metrics = NewMetrics(nil)
+	}
+	opts := influxdb2.DefaultOptions().
+		SetHTTPRequestTimeout(uint(max(1, o.Timeout.Round(time.Second)/time.Second))).
+		SetPrecision(time.Nanosecond)
+	if o.TLS != nil {
+		opts.SetTLSConfig(o.TLS)
+	}
+	if o.HTTPClient != nil {
+		opts.SetHTTPClient(o.HTTPClient)
+	}
+	client := influxdb2.NewClientWithOptions(o.URL, o.Token, opts)
+	st, err := o.Spool.Stats()
+	if err != nil {
+		client.Close()
+		return nil, err
+	}
+	w := &Writer{
+		o: o, spool: o.Spool, client: client, api: client.WriteAPIBlocking(o.Org, o.Bucket),
+		log: o.Logger, m: o.Metrics, wake: make(chan struct{}, 1),
+		cursor: st.Written, rl: rateLog{every: rejectLogEvery},
+	}
+	w.dcursor = w.spoolDerivedCursor()
+	return w, nil
+}
+
+func (w *Writer) spoolDerivedCursor() uint64 {
+	w.spool.mu.Lock()
+	defer w.spool.mu.Unlock()
+	return w.spool.meta.dWritten
+}
+
+// Close releases the HTTP client.
+func (w *Writer) Close() { w.client.Close() }
+
+// Notify wakes the writer (after a commit).
+func (w *Writer) Notify() {
+	select {
+	case w.wake <- struct{}{}:
+	default:
+	}
+}
+
+// Reachable reports whether the last database request succeeded; known is
+// false before the first request.
+func (w *Writer) Reachable() (reachable, known bool, lastErr error, lastOK time.Time) {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	return w.reachable, w.known, w.lastErr, w.lastOK
+}
+
+func (w *Writer) setReachable(ok bool, err error) {
+	w.mu.Lock()
+	w.reachable, w.known = ok, true
+	if ok {
+		w.lastErr, w.lastOK = nil, time.Now()
+	} else {
+		w.lastErr = err
+	}
+	w.mu.Unlock()
+	if ok {
+		w.m.DBReachable.Set(1)
+	} else {
+		w.m.DBReachable.Set(0)
+	}
+}
+
+// Run writes until ctx ends. It returns nil on cancellation and an error only
+// when the spool fails.
+func (w *Writer) Run(ctx context.Context) error {
+	idle := time.NewTimer(time.Second)
+	defer idle.Stop()
+	lastPing := time.Time{}
+	for {
+		n, err := w.step(ctx, true)
+		if ctx.Err() != nil {
+			return nil
+		}
+		if err != nil {
+			return err
+		}
+		if n > 0 {
+			continue
+		}
+		if r, known, _, _ := w.Reachable(); (!known || !r) && time.Since(lastPing) >= pingEvery {
+			lastPing = time.Now()
+			w.ping(ctx)
+		}
+		idle.Reset(time.Second)
+		select {
+		case <-ctx.Done():
+			return nil
+		case <-w.wake:
+		case <-idle.C:
+		}
+	}
+}
+
+func (w *Writer) ping(ctx context.Context) {
+	pctx, cancel := context.WithTimeout(ctx, 2*time.Second)
+	defer cancel()
+	ok, err := w.client.Ping(pctx)
+	if ctx.Err() != nil {
+		return
+	}
+	if err == nil && !ok {
+		err = errors.New("ping: not ready")
+	}
+	w.setReachable(err == nil, err)
+}
+
+// Flush writes what is pending without retrying (a failure returns the
+// error); used at shutdown within ctx's deadline.
+func (w *Writer) Flush(ctx context.Context) error {
+	for {
+		n, err := w.step(ctx, false)
+		if err != nil {
+			return err
+		}
+		if n == 0 {
+			return nil
+		}
+	}
+}
+
+// step writes one batch of readings and one of derived points; n is the
+// number of points handled.
+func (w *Writer) step(ctx context.Context, retry bool) (n int, err error) {
+	w.entries, err = w.spool.ReadReadings(w.cursor, w.o.BatchSize, w.entries[:0])
+	if err != nil {
+		return 0, err
+	}
+	if len(w.entries) > 0 {
+		w.buf = w.buf[:0]
+		for i := range w.entries {
+			w.buf = AppendLineProtocol(w.buf, &w.entries[i].Reading)
+		}
+		body := string(w.buf[:len(w.buf)-1])
+		stored, err := w.deliver(ctx, body, len(w.entries), MeasurementReadings, retry)
+		if err != nil {
+			return 0, err
+		}
+		last := w.entries[len(w.entries)-1].Seq
+		if err := w.spool.MarkWritten(last); err != nil {
+			return 0, err
+		}
+		w.cursor = last
+		w.m.ReadingsStored.Add(float64(stored))
+		n += len(w.entries)
+		clear(w.entries)
+	}
+	// A derived point waits for the readings it must follow.
+	w.derived, err = w.spool.ReadDerived(w.dcursor, w.cursor, w.o.BatchSize, w.derived[:0])
+	if err != nil {
+		return n, err
+	}
+	if len(w.derived) > 0 {
+		var b strings.Builder
+		for i := range w.derived {
+			if i > 0 {
+				b.WriteByte('\n')
+			}
+			b.Write(w.derived[i].Line)
+		}
+		stored, err := w.deliver(ctx, b.String(), len(w.derived), "derived", retry)
+		if err != nil {
+			return n, err
+		}
+		last := w.derived[len(w.derived)-1].Seq
+		if err := w.spool.MarkDerivedWritten(last); err != nil {
+			return n, err
+		}
+		w.dcursor = last
+		w.m.DerivedStored.Add(float64(stored))
+		n += len(w.derived)
+		clear(w.derived)
+	}
+	return n, nil
+}
+
+// AppendLineProtocol appends the water_temperature point of r (with a
+// trailing newline) to b.
+func AppendLineProtocol(b []byte, r *Reading) []byte {
+	b = append(b, MeasurementReadings+",depth_m="...)
+	b = strconv.AppendFloat(b, r.Depth, 'f', -1, 64)
+	if r.Sensor != "" {
+		b = append(b, ",sensor="...)
+		b = appendTag(b, r.Sensor)
+	}
+	b = append(b, ",site="...)
+	b = appendTag(b, r.Site)
+	b = append(b, " qc="...)
+	b = strconv.AppendUint(b, uint64(r.QC), 10)
+	b = append(b, "i,temp_c="...)
+	b = strconv.AppendFloat(b, r.TempC, 'g', -1, 64)
+	b = append(b, ' ')
+	b = strconv.AppendInt(b, r.Time.UnixNano(), 10)
+	return append(b, '\n')
+}
+
+// appendTag escapes a tag value for line protocol: comma, equals sign and
+// space get a backslash. Identifiers never hold control characters (decode.go).
+func appendTag(b []byte, s string) []byte {
+	for i := 0; i < len(s); i++ {
+		switch c := s[i]; c {
+		case ',', '=', ' ':
+			b = append(b, '\\', c)
+		default:
+			b = append(b, c)
+		}
+	}
+	return b
+}
+
+// errorClass sorts a write error: "client" (the data was refused: 400, 422),
+// "too_large" (413), "config" (401, 403, 404: credentials or bucket),
+// "server" (429, 5xx) or "network".
+func errorClass(err error) (class string, status int, retryAfter time.Duration) {
+	var he *ihttp.Error
+	if errors.As(err, &he) && he.StatusCode != 0 {
+		ra := time.Duration(he.RetryAfter) * time.Second
+		switch s := he.StatusCode; {
+		case s == http.StatusBadRequest || s == http.StatusUnprocessableEntity:
+			return "client", s, 0
+		case s == http.StatusRequestEntityTooLarge:
+			return "too_large", s, 0
+		case s == http.StatusUnauthorized || s == http.StatusForbidden || s == http.StatusNotFound:
+			return "config", s, ra
+		default:
+			return "server", s, ra
+		}
+	}
+	return "network", 0, 0
+}
+
+// deliver writes body (n points, one per line), retrying transient failures
+// (when retry is set) and dead-lettering what the database refuses. It
+// returns the number of points stored; an error only when ctx ended, a
+// non-retried attempt failed, or the spool failed.
+func (w *Writer) deliver(ctx context.Context, body string, n int, what string, retry bool) (stored int, err error) {
+	budget := maxSplitRequests
+	var rejected []DeadLetter
+	var rec func(part string, n int) error
+	rec = func(part string, n int) error {
+		err := w.send(ctx, part, n, retry)
+		if err == nil {
+			stored += n
+			return nil
+		}
+		class, status, _ := errorClass(err)
+		if class != "client" && class != "too_large" {
+			return err
+		}
+		if n > 1 && budget >= 2 {
+			budget -= 2
+			a, b, na := splitLines(part, n/2)
+			if err := rec(a, na); err != nil {
+				return err
+			}
+			return rec(b, n-na)
+		}
+		if class == "too_large" && n > 1 {
+			return fmt.Errorf("database refuses even small batches as too large: %w", err)
+		}
+		for _, l := range strings.Split(part, "\n") {
+			rejected = append(rejected, DeadLetter{
+				Time: time.Now().UTC(), Kind: DeadPoint, Topic: measurementOf(l),
+				Reason: "influx_" + strconv.Itoa(status), Detail: err.Error(), Payload: []byte(l),
+			})
+		}
+		return nil
+	}
+	if err := rec(body, n); err != nil {
+		return stored, err
+	}
+	if len(rejected) > 0 {
+		if err := w.spool.AddDeadLetters(rejected); err != nil {
+			return stored, err
+		}
+		w.m.PointsRejected.Add(float64(len(rejected)))
+		w.m.MessagesRejected.WithLabelValues(ReasonInfluxReject).Add(float64(len(rejected)))
+		if n, ok := w.rl.allow("rejected", time.Now()); ok {
+			w.log.Error("database refused points; they are in the dead-letter bucket",
+				"points", len(rejected), "series", what, "reason", rejected[0].Reason, "err", rejected[0].Detail,
+				"first", clip(string(rejected[0].Payload)), "suppressed", n)
+		}
+	}
+	return stored, nil
+}
+
+// splitLines splits body after its k-th line (0 < k < lines): the first part,
+// the rest, and the number of lines in the first part.
+func splitLines(body string, k int) (string, string, int) {
+	off := 0
+	for i := 0; i < k; i++ {
+		j := strings.IndexByte(body[off:], '\n')
+		if j < 0 {
+			return body, "", i + 1
+		}
+		off += j + 1
+	}
+	return body[:off-1], body[off:], k
+}
+
+func measurementOf(line string) string {
+	for i := 0; i < len(line); i++ {
+		switch line[i] {
+		case '\\':
+			i++
+		case ',', ' ':
+			return line[:i]
+		}
+	}
+	return line
+}
+
+// send posts one request, retrying transient failures with exponential
+// backoff and full jitter when retry is set. Client errors (4xx data) are
+// returned at once.
+func (w *Writer) send(ctx context.Context, body string, n int, retry bool) error {
+	for attempt := 0; ; attempt++ {
+		start := time.Now()
+		rctx, cancel := context.WithTimeout(ctx, w.o.Timeout)
+		err := w.api.WriteRecord(rctx, body)
+		cancel()
+		if err == nil {
+			w.m.WriteDuration.Observe(time.Since(start).Seconds())
+			if attempt > 0 {
+				w.log.Info("database writes succeed again", "attempts", attempt+1)
+			}
+			w.setReachable(true, nil)
+			return nil
+		}
+		if ctx.Err() != nil {
+			return ctx.Err()
+		}
+		class, status, retryAfter := errorClass(err)
+		switch class {
+		case "client", "too_large":
+			w.m.WriteErrors.WithLabelValues("client").Inc()
+			w.setReachable(true, nil)
+			return err
+		case "network":
+			w.m.WriteErrors.WithLabelValues("network").Inc()
+			w.setReachable(false, err)
+		default:
+			w.m.WriteErrors.WithLabelValues("server").Inc()
+			w.setReachable(status < 500 && status != http.StatusTooManyRequests, err)
+		}
+		if !retry {
+			return fmt.Errorf("write %d points: %w", n, err)
+		}
+		delay := w.backoff(attempt)
+		if retryAfter > delay {
+			delay = min(retryAfter, w.o.BackoffMax)
+		}
+		if n, ok := w.rl.allow("write_"+class, time.Now()); ok {
+			w.log.Warn("database write failed; readings stay in the spool, retrying",
+				"err", err, "class", class, "status", status, "points", n, "attempt", attempt+1,
+				"retry_in", delay.Round(time.Millisecond), "suppressed", n)
+		}
+		t := time.NewTimer(delay)
+		select {
+		case <-ctx.Done():
+			t.Stop()
+			return ctx.Err()
+		case <-t.C:
+		}
+	}
+}
+
+// backoff is the delay before retry attempt+1: uniform in
+// [min, min(max, min·2^attempt)] ("full jitter" above the floor).
+func (w *Writer) backoff(attempt int) time.Duration {
+	hi := w.o.BackoffMin << min(attempt, 20)
+	if hi > w.o.BackoffMax || hi <= 0 {
+		hi = w.o.BackoffMax
+	}
+	lo := w.o.BackoffMin
+	if hi <= lo {
+		return lo
+	}
+	return lo + rand.N(hi-lo)
+}

@@ -1,0 +1,851 @@
+// Package daemon wires the live pipeline of `holomix run`:
+//
+//	MQTT (ingest.Subscriber) → ingest.Committer → spool.db → ingest.Writer → InfluxDB
+//	                                                 └→ feeder → internal/engine → alert outbox, status page,
+//	                                                                               derived points (spool → InfluxDB)
+//
+// and its operational surface (/healthz, /readyz, /metrics, the status page).
+//
+// Exactly-once detection across crashes: the feeder hands committed readings
+// to the engine in sequence order; every CheckpointInterval (and at shutdown)
+// the engine snapshot, the quality-control and duplicate memory and the
+// sequence numbers they include are saved in state.db in one bbolt
+// transaction; the spool deletes a reading only when it is in the database
+// AND below the saved checkpoint. On start the snapshot is restored and the
+// spooled readings after it are fed again (alert submission is idempotent by
+// alert id, derived points overwrite themselves in InfluxDB).
+package daemon
+
+import (
+	"context"
+	"crypto/tls"
+	"encoding/binary"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"net/http"
+	"os"
+	"path/filepath"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/influxdata/influxdb-client-go/v2/api/write"
+	"github.com/prometheus/client_golang/prometheus"
+	"github.com/prometheus/client_golang/prometheus/collectors"
+	"github.com/prometheus/client_golang/prometheus/promhttp"
+	bolt "go.etcd.io/bbolt"
+
+	"holomix/alert"
+	"holomix/config"
+	"holomix/detect"
+	"holomix/ingest"
+	"holomix/internal/engine"
+	"holomix/internal/httpauth"
+	"holomix/internal/status"
+)
+
+// Defaults of Options.
+const (
+	DefaultCheckpointInterval = 5 * time.Second
+	// shutdownBudget is the time Run takes at most to drain after ctx ends.
+	shutdownBudget = 5 * time.Second
+	feedChunk      = 4096
+	// redeliveryWindow is the number of recent timestamps per sensor that
+	// quality control and the exact-duplicate memory keep.
+	redeliveryWindow = 16
+)
+
+// Options configure Run.
+type Options struct {
+	// Config is the loaded configuration (config.Load: defaults applied,
+	// secrets resolved). Required.
+	Config *config.Config
+	// Logger receives structured logs (nil: discarded).
+	Logger *slog.Logger
+	// Registry receives every metric (nil: a new registry; the global default
+	// registry is never used).
+	Registry *prometheus.Registry
+	// Extra, when set, is mounted at "/" instead of the status page.
+	Extra http.Handler
+	// Status, when set, is the status page's store (the daemon feeds it every
+	// column and event); nil: the daemon makes one from the configured sites.
+	Status *status.Store
+	// StatusPage tunes the status page (title, refresh); its Logger defaults
+	// to the daemon's.
+	StatusPage status.Options
+	// Air, when set, delivers air temperatures (°C) to the sites' detectors
+	// (frazil risk), like the sites' air_topic subscriptions. Not spooled:
+	// an air temperature only informs a risk heuristic.
+	Air <-chan AirTemp
+	// Listener, when set, serves HTTP instead of listening on Config.HTTP.Listen.
+	Listener net.Listener
+	// CheckpointInterval is how often detection state is saved (<= 0: 5 s).
+	CheckpointInterval time.Duration
+	// OnReady is called once storage is open, the HTTP server listens and the
+	// subscriber started connecting (tests, service notification).
+	OnReady func(Info)
+}
+
+// AirTemp is one air temperature for a site (°C, UTC).
+type AirTemp struct {
+	Site string
+	Time time.Time
+	C    float64
+}
+
+// Info describes a running daemon.
+type Info struct {
+	HTTPAddr string // address the HTTP server listens on
+}
+
+// Health is the daemon's state as the status page and /readyz see it.
+type Health struct {
+	BrokerConnected bool
+	BrokerError     string
+	SpoolOK         bool
+	SpoolError      string
+	BackPressure    bool
+	SpoolPending    int64         // readings not yet in the database
+	SpoolOldest     time.Duration // age of the oldest of them
+	SpoolBytes      int64
+	SpoolMaxBytes   int64
+	DeadLetters     int64
+	DBConfigured    bool
+	DBReachable     bool
+	DBError         string
+	AcksPending     int
+	Pending, Failed int // alert deliveries
+}
+
+type daemon struct {
+	o     Options
+	cfg   *config.Config
+	log   *slog.Logger
+	reg   *prometheus.Registry
+	m     *ingest.Metrics
+	dm    *daemonMetrics
+	dir   string
+	spool *ingest.Spool
+	state *bolt.DB
+	com   *ingest.Committer
+	sub   *ingest.Subscriber
+	wr    *ingest.Writer // nil without a database URL
+	eng   *engine.Engine
+	sink  *engineSink
+	al    *alert.Dispatcher // nil when the outbox could not be opened
+	store *status.Store
+	ckInt time.Duration
+
+	feedWake chan struct{}
+	air      chan AirTemp // air temperatures from air_topic subscriptions
+	fed      uint64       // last sequence handed to the engine (feeder goroutine)
+	saved    struct{ eng, qc uint64 }
+	// savedBytes is the size of the last checkpoint.
+	savedBytes int
+
+	hmu      sync.Mutex // guards the cached delivery counts
+	hAt      time.Time
+	hPending int
+	hFailed  int
+}
+
+type daemonMetrics struct {
+	checkpoints      prometheus.Counter
+	checkpointErrors prometheus.Counter
+	checkpointDur    prometheus.Histogram
+	fed              prometheus.Counter
+	late             prometheus.Counter
+	lateRedelivered  prometheus.Counter
+	submitErrors     prometheus.Counter
+	httpRejected     *prometheus.CounterVec
+}
+
+func newDaemonMetrics(reg prometheus.Registerer) *daemonMetrics {
+	m := &daemonMetrics{
+		checkpoints: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "holomix_checkpoints_total", Help: "Detection checkpoints saved to state.db."}),
+		checkpointErrors: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "holomix_checkpoint_errors_total", Help: "Detection checkpoints that failed."}),
+		checkpointDur: prometheus.NewHistogram(prometheus.HistogramOpts{
+			Name: "holomix_checkpoint_duration_seconds", Help: "Time to snapshot and save detection state.",
+			Buckets: prometheus.ExponentialBuckets(0.001, 2, 14)}),
+		fed: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "holomix_readings_detected_total", Help: "Spooled readings handed to detection."}),
+		late: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "holomix_readings_late_total", Help: "Readings that arrived after their profile was closed (re-stored flagged QCLate)."}),
+		lateRedelivered: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "holomix_readings_redelivered_after_detection_total", Help: "Broker redeliveries of readings whose profile was already detected (ignored by detection, not re-flagged)."}),
+		submitErrors: prometheus.NewCounter(prometheus.CounterOpts{
+			Name: "holomix_alert_submit_errors_total", Help: "Events the alert outbox refused or failed to store."}),
+		httpRejected: prometheus.NewCounterVec(prometheus.CounterOpts{
+			Name: "holomix_http_auth_rejected_total", Help: "HTTP requests refused for missing or wrong credentials."}, []string{"reason"}),
+	}
+	reg.MustRegister(m.checkpoints, m.checkpointErrors, m.checkpointDur, m.fed, m.late, m.lateRedelivered, m.submitErrors, m.httpRejected)
+	return m
+}
+
+// Run runs the daemon until ctx ends, then drains within 5 s: it stops taking
+// messages, commits and acknowledges the batch in flight, disconnects, feeds
+// detection, saves a checkpoint, flushes what the database accepts, closes the
+// database client and returns nil. An error means start-up failed or a
+// component failed fatally.
+func Run(ctx context.Context, o Options) error {
+	d, err := open(o)
+	if err != nil {
+		return err
+	}
+	return d.run(ctx)
+}
+
+func open(o Options) (d *daemon, err error) {
+	if o.Config == nil {
+		return nil, errors.New("daemon: no configuration")
+	}
+	if o.Logger == nil {
+		o.Logger = slog.New(slog.DiscardHandler)
+	}
+	if o.Registry == nil {
+		o.Registry = prometheus.NewRegistry()
+	}
+	if o.CheckpointInterval <= 0 {
+		o.CheckpointInterval = DefaultCheckpointInterval
+	}
+	cfg := o.Config
+	d = &daemon{o: o, cfg: cfg, log: o.Logger, reg: o.Registry, ckInt: o.CheckpointInterval, feedWake: make(chan struct{}, 1)}
+	d.dir = cfg.Storage.Dir
+	if d.dir == "" {
+		return nil, errors.New("daemon: storage.dir is empty")
+	}
+	if err := os.MkdirAll(d.dir, 0o750); err != nil {
+		return nil, fmt.Errorf("daemon: storage directory: %w", err)
+	}
+	var closers []func()
+	defer func() {
+		if err != nil {
+			for i := len(closers) - 1; i >= 0; i-- {
+				closers[i]()
+			}
+		}
+	}()
+
+	d.reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	d.m = ingest.NewMetrics(d.reg)
+	d.dm = newDaemonMetrics(d.reg)
+
+	d.spool, err = ingest.OpenSpool(filepath.Join(d.dir, "spool.db"), ingest.SpoolOptions{
+		MaxBytes: int64(cfg.Storage.SpoolMaxBytes), DeadLetterMax: cfg.Storage.DeadLetterMax, Metrics: d.m})
+	if err != nil {
+		return nil, err
+	}
+	closers = append(closers, func() { d.spool.Close() })
+	if err := ingest.RegisterSpool(d.reg, d.spool); err != nil {
+		return nil, fmt.Errorf("daemon: spool metrics: %w", err)
+	}
+	d.state, err = bolt.Open(filepath.Join(d.dir, "state.db"), 0o640, &bolt.Options{Timeout: 2 * time.Second,
+		InitialMmapSize: 256 << 20}) // address space: no remap as checkpoints grow
+	if err != nil {
+		return nil, fmt.Errorf("daemon: open state.db: %w", err)
+	}
+	closers = append(closers, func() { d.state.Close() })
+
+	// Detection and what hangs off it.
+	d.store = o.Status
+	if d.store == nil && o.Extra == nil {
+		metas := make([]status.SiteMeta, 0, len(cfg.Sites))
+		for _, s := range cfg.Sites {
+			metas = append(metas, status.SiteMeta{ID: s.ID, Name: s.Name, MaxDepth: s.MaxDepth, Intakes: s.Intakes, Depths: s.Depths})
+		}
+		d.store = status.NewStore(metas, 0)
+	}
+	d.air = make(chan AirTemp, 256)
+	sites := make(map[string]alert.SiteInfo, len(cfg.Sites))
+	for _, s := range cfg.Sites {
+		loc, lerr := time.LoadLocation(s.Timezone)
+		if lerr != nil {
+			loc = time.UTC
+		}
+		sites[s.ID] = alert.SiteInfo{ID: s.ID, Name: s.Name, Location: loc}
+	}
+	d.al, err = alert.Open(alert.Options{Dir: d.dir, Receivers: cfg.Alerts.Receivers, StatusURL: cfg.Alerts.StatusURL,
+		Sites: sites, Logger: d.log.With("component", "alert"), Registerer: d.reg})
+	if err != nil {
+		return nil, fmt.Errorf("daemon: alert outbox: %w", err)
+	}
+	closers = append(closers, func() { d.al.Close() })
+	d.sink = &engineSink{d: d}
+	d.eng, err = engine.New(cfg, d.sink)
+	if err != nil {
+		return nil, err
+	}
+
+	// Ingestion.
+	qcc := ingest.QCConfigFrom(cfg)
+	// Redelivered messages are the newest of each sensor (those in flight
+	// when the connection or the process went away), so a short duplicate
+	// memory recognises them; it keeps the checkpoint small (quality control
+	// saves every remembered timestamp) for installations with many sensors.
+	qcc.DuplicateWindow = redeliveryWindow
+	d.com = ingest.NewCommitter(ingest.CommitterOptions{
+		Spool: d.spool, QC: ingest.NewQualityControl(qcc), DuplicateWindow: qcc.DuplicateWindow,
+		Interval: cfg.Ingest.CommitInterval.D(), MaxReadings: cfg.Ingest.CommitMax,
+		Resolve: siteResolver(cfg), Logger: d.log.With("component", "spool"), Metrics: d.m,
+		OnCommit: d.committed,
+	})
+	if err := d.restore(); err != nil {
+		return nil, err
+	}
+	airTopics := map[string]string{}
+	for _, s := range cfg.Sites {
+		if s.AirTopic != "" {
+			airTopics[s.AirTopic] = s.ID
+		}
+	}
+	d.sub, err = ingest.NewSubscriber(ingest.SubscriberOptions{MQTT: cfg.MQTT, MaxPayload: cfg.Ingest.MaxPayloadBytes,
+		Sink: d.com, Logger: d.log.With("component", "mqtt"), Metrics: d.m,
+		AirTopics: airTopics, OnAir: d.onAir})
+	if err != nil {
+		return nil, err
+	}
+	if cfg.Influx.URL != "" {
+		var tc *tls.Config
+		if cfg.Influx.TLS.IsSet() || strings.HasPrefix(strings.ToLower(cfg.Influx.URL), "https:") {
+			if tc, err = cfg.Influx.TLS.ClientConfig(); err != nil {
+				return nil, fmt.Errorf("daemon: influx tls: %w", err)
+			}
+		}
+		d.wr, err = ingest.NewWriter(ingest.WriterOptions{Spool: d.spool, URL: cfg.Influx.URL, Org: cfg.Influx.Org,
+			Bucket: cfg.Influx.Bucket, Token: cfg.Influx.Token.Get(), TLS: tc, Timeout: cfg.Influx.Timeout.D(),
+			BatchSize: cfg.Influx.BatchSize, Logger: d.log.With("component", "influx"), Metrics: d.m})
+		if err != nil {
+			return nil, err
+		}
+	} else {
+		d.log.Warn("no influx.url: readings stay in the spool until it fills, then messages are no longer acknowledged")
+	}
+	return d, nil
+}
+
+// restore loads the last checkpoint and replays what was spooled after it.
+func (d *daemon) restore() error {
+	var engState, qcState, dupState []byte
+	err := d.state.Update(func(tx *bolt.Tx) error {
+		b, err := tx.CreateBucketIfNotExists(bktCheckpoint)
+		if err != nil {
+			return err
+		}
+		engState, qcState, dupState = clone(b.Get(keyEngine)), clone(b.Get(keyQC)), clone(b.Get(keyDups))
+		d.saved.eng, d.saved.qc = u64(b.Get(keyEngineSeq)), u64(b.Get(keyQCSeq))
+		return nil
+	})
+	if err != nil {
+		return fmt.Errorf("daemon: read checkpoint: %w", err)
+	}
+	if engState != nil {
+		if err := d.eng.Restore(engState); err != nil {
+			return fmt.Errorf("daemon: %w (move state.db away to start detection afresh)", err)
+		}
+	}
+	replayed, err := d.com.Restore(qcState, dupState, d.saved.qc)
+	if err != nil {
+		return fmt.Errorf("daemon: restore quality control: %w", err)
+	}
+	d.fed = d.saved.eng
+	if engState != nil {
+		if err := d.spool.SetCheckpoint(min(d.saved.eng, d.saved.qc)); err != nil {
+			return err
+		}
+	}
+	st, _ := d.spool.Stats()
+	d.log.Info("state restored", "checkpoint_seq", d.saved.eng, "qc_seq", d.saved.qc, "qc_replayed", replayed,
+		"spool_last_seq", st.LastSeq, "spool_pending", st.Pending, "to_detect", st.LastSeq-min(st.LastSeq, d.fed))
+	return nil
+}
+
+// onAir passes an air temperature from an air_topic subscription to the
+// feeder goroutine (dropped with a warning when the feeder lags far behind).
+func (d *daemon) onAir(site string, t time.Time, c float64) {
+	select {
+	case d.air <- AirTemp{Site: site, Time: t, C: c}:
+	default:
+		d.log.Warn("air temperature dropped: detection is busy", "site", site)
+	}
+}
+
+func (d *daemon) committed(uint64) {
+	select {
+	case d.feedWake <- struct{}{}:
+	default:
+	}
+	if d.wr != nil {
+		d.wr.Notify()
+	}
+}
+
+func (d *daemon) run(ctx context.Context) error {
+	// HTTP first: /healthz answers while the broker is still unreachable.
+	ln := d.o.Listener
+	if ln == nil {
+		var err error
+		if ln, err = net.Listen("tcp", d.cfg.HTTP.Listen); err != nil {
+			d.closeAll()
+			return fmt.Errorf("daemon: http listen %s: %w", d.cfg.HTTP.Listen, err)
+		}
+	}
+	srv := &http.Server{Handler: d.handler(), ReadHeaderTimeout: 10 * time.Second, ErrorLog: slog.NewLogLogger(d.log.Handler(), slog.LevelWarn)}
+	httpDone := make(chan error, 1)
+	go func() { httpDone <- srv.Serve(ln) }()
+	d.log.Info("http listening", "addr", ln.Addr().String())
+
+	comCtx, comCancel := context.WithCancel(context.Background())
+	comDone := make(chan error, 1)
+	go func() { comDone <- d.com.Run(comCtx) }()
+	feedCtx, feedCancel := context.WithCancel(context.Background())
+	feedDone := make(chan error, 1)
+	go func() { feedDone <- d.feedLoop(feedCtx) }()
+	wrCtx, wrCancel := context.WithCancel(context.Background())
+	wrDone := make(chan error, 1)
+	go func() {
+		if d.wr == nil {
+			<-wrCtx.Done()
+			wrDone <- nil
+			return
+		}
+		wrDone <- d.wr.Run(wrCtx)
+	}()
+	alCtx, alCancel := context.WithCancel(context.Background())
+	alDone := make(chan error, 1)
+	go func() { alDone <- d.al.Run(alCtx) }()
+	subCtx, subCancel := context.WithCancel(context.Background())
+	d.sub.Start(subCtx)
+	if d.o.OnReady != nil {
+		d.o.OnReady(Info{HTTPAddr: ln.Addr().String()})
+	}
+
+	var runErr error
+	select {
+	case <-ctx.Done():
+	case err := <-comDone:
+		comDone <- err
+		runErr = fmt.Errorf("daemon: spool committer stopped: %w", err)
+	case err := <-feedDone:
+		feedDone <- err
+		runErr = fmt.Errorf("daemon: detection feed stopped: %w", err)
+	case err := <-wrDone:
+		wrDone <- err
+		runErr = fmt.Errorf("daemon: database writer stopped: %v", err)
+	case err := <-httpDone:
+		httpDone <- err
+		runErr = fmt.Errorf("daemon: http server stopped: %w", err)
+	}
+	if runErr != nil {
+		d.log.Error("stopping after a failure", "err", runErr)
+	} else {
+		d.log.Info("stopping: draining")
+	}
+	start := time.Now()
+	deadline := start.Add(shutdownBudget - 250*time.Millisecond)
+
+	// 1. Stop taking messages; commit and acknowledge what is in flight; disconnect.
+	d.sub.StopIntake()
+	comCancel()
+	if err := <-comDone; err != nil && runErr == nil {
+		runErr = fmt.Errorf("daemon: spool committer: %w", err)
+	}
+	d.sub.Disconnect(200 * time.Millisecond)
+	subCancel()
+	// 2. Feed detection what was committed and save the checkpoint.
+	feedCancel()
+	if err := <-feedDone; err != nil && runErr == nil {
+		runErr = err
+	}
+	// 3. Write what the database takes in the time left.
+	wrCancel()
+	if err := <-wrDone; err != nil && runErr == nil {
+		runErr = err
+	}
+	if d.wr != nil {
+		if ok, _, _, _ := d.wr.Reachable(); ok {
+			fctx, cancel := context.WithDeadline(context.Background(), deadline.Add(-time.Second))
+			if err := d.wr.Flush(fctx); err != nil && fctx.Err() == nil {
+				d.log.Warn("final flush incomplete; the rest stays spooled", "err", err)
+			}
+			cancel()
+		}
+	}
+	// 4. Alerts, HTTP, files.
+	alCancel()
+	<-alDone
+	hctx, cancel := context.WithDeadline(context.Background(), deadline)
+	_ = srv.Shutdown(hctx)
+	cancel()
+	d.closeAll()
+	st := "clean"
+	if runErr != nil {
+		st = "after failure"
+	}
+	d.log.Info("stopped", "how", st, "took", time.Since(start).Round(time.Millisecond))
+	return runErr
+}
+
+func (d *daemon) closeAll() {
+	if d.wr != nil {
+		d.wr.Close()
+	}
+	if err := d.al.Close(); err != nil {
+		d.log.Warn("closing the alert outbox", "err", err)
+	}
+	if err := d.state.Close(); err != nil {
+		d.log.Warn("closing state.db", "err", err)
+	}
+	if err := d.spool.Close(); err != nil {
+		d.log.Warn("closing the spool", "err", err)
+	}
+}
+
+// feedLoop hands committed readings to detection and checkpoints. The
+// checkpoint interval stretches to 20 times the last checkpoint's duration
+// when that is longer (large installations), so saving state never takes more
+// than about 5 % of the time.
+func (d *daemon) feedLoop(ctx context.Context) error {
+	ext := d.o.Air
+	timer := time.NewTimer(d.ckInt)
+	defer timer.Stop()
+	for {
+		if err := d.feedAll(); err != nil {
+			return err
+		}
+		select {
+		case <-ctx.Done():
+			if err := d.feedAll(); err != nil {
+				return err
+			}
+			d.checkpoint()
+			return nil
+		case <-d.feedWake:
+		case a := <-d.air:
+			d.eng.AddAir(a.Site, a.Time, a.C)
+		case a, ok := <-ext:
+			if ok {
+				d.eng.AddAir(a.Site, a.Time, a.C)
+			} else {
+				ext = nil
+			}
+		case <-timer.C:
+			if err := d.feedAll(); err != nil {
+				return err
+			}
+			took := d.checkpoint()
+			timer.Reset(max(d.ckInt, 20*took))
+		}
+	}
+}
+
+// feedAll feeds every committed reading after d.fed and spools the derived
+// points, so that they are durable before any checkpoint includes them.
+func (d *daemon) feedAll() error {
+	var buf []ingest.Entry
+	for {
+		var err error
+		buf, err = d.spool.ReadReadings(d.fed, feedChunk, buf[:0])
+		if err != nil {
+			return fmt.Errorf("daemon: feed: %w", err)
+		}
+		if len(buf) == 0 {
+			return nil
+		}
+		for i := range buf {
+			e := &buf[i]
+			if d.eng.Add(e.Reading) {
+				if e.Redelivered {
+					// A broker redelivery of a reading detected before (beyond
+					// the duplicate memory): not late, and its stored flags stand.
+					d.dm.lateRedelivered.Inc()
+					d.fed = e.Seq
+					continue
+				}
+				// Its profile was already detected: store it again flagged late
+				// (same series and time: the flagged copy replaces the first).
+				r := e.Reading
+				r.QC |= ingest.QCLate
+				l := ingest.AppendLineProtocol(nil, &r)
+				d.sink.lines = append(d.sink.lines, l[:len(l)-1])
+				d.dm.late.Inc()
+			}
+			d.fed = e.Seq
+		}
+		d.dm.fed.Add(float64(len(buf)))
+		if len(d.sink.lines) > 0 {
+			if err := d.spool.AppendLinesAfter(d.fed, d.sink.lines); err != nil {
+				return fmt.Errorf("daemon: spool derived points: %w", err)
+			}
+			clear(d.sink.lines)
+			d.sink.lines = d.sink.lines[:0]
+		}
+	}
+}
+
+var (
+	bktCheckpoint = []byte("checkpoint")
+	keyEngine     = []byte("engine")
+	keyEngineSeq  = []byte("engine_seq")
+	keyQC         = []byte("qc")
+	keyDups       = []byte("dups")
+	keyQCSeq      = []byte("qc_seq")
+	keySaved      = []byte("saved_at")
+)
+
+// checkpoint saves the engine snapshot (at d.fed) and the QC and duplicate
+// memory (at their own, later or equal, sequence) in one transaction, then
+// lets the spool delete below the smaller of the two.
+func (d *daemon) checkpoint() time.Duration {
+	qcSeq := d.com.LastSeq()
+	if d.fed == d.saved.eng && qcSeq == d.saved.qc {
+		return 0
+	}
+	start := time.Now()
+	err := func() error {
+		eng, err := d.eng.Snapshot()
+		if err != nil {
+			return err
+		}
+		qc, dups, qseq, err := d.com.Snapshot()
+		if err != nil {
+			return err
+		}
+		if qseq < d.fed {
+			return fmt.Errorf("quality-control memory at %d is behind detection at %d", qseq, d.fed)
+		}
+		err = d.state.Update(func(tx *bolt.Tx) error {
+			b, err := tx.CreateBucketIfNotExists(bktCheckpoint)
+			if err != nil {
+				return err
+			}
+			for _, kv := range [][2][]byte{{keyEngine, eng}, {keyEngineSeq, be64(d.fed)}, {keyQC, qc}, {keyDups, dups},
+				{keyQCSeq, be64(qseq)}, {keySaved, be64(uint64(time.Now().UnixNano()))}} {
+				if err := b.Put(kv[0], kv[1]); err != nil {
+					return err
+				}
+			}
+			return nil
+		})
+		if err != nil {
+			return fmt.Errorf("state.db: %w", err)
+		}
+		d.saved.eng, d.saved.qc = d.fed, qseq
+		d.savedBytes = len(eng) + len(qc) + len(dups)
+		return d.spool.SetCheckpoint(min(d.fed, qseq))
+	}()
+	if err != nil {
+		d.dm.checkpointErrors.Inc()
+		d.log.Error("checkpoint failed; the previous one stays valid", "err", err)
+		return time.Since(start)
+	}
+	took := time.Since(start)
+	d.dm.checkpoints.Inc()
+	d.dm.checkpointDur.Observe(took.Seconds())
+	d.log.Debug("checkpoint saved", "seq", d.fed, "qc_seq", d.saved.qc, "took", took, "bytes", d.savedBytes)
+	return took
+}
+
+// engineSink receives what detection derives (on the feeder goroutine).
+type engineSink struct {
+	d     *daemon
+	lines [][]byte
+}
+
+func lineOf(p *write.Point) []byte {
+	return []byte(strings.TrimRight(write.PointToLineProtocol(p, time.Nanosecond), "\n"))
+}
+
+func (s *engineSink) Column(c detect.Column, p detect.Profile) {
+	if l := lineOf(engine.ColumnPoint(c)); len(l) > 0 {
+		s.lines = append(s.lines, l)
+	}
+	if s.d.store != nil {
+		s.d.store.ObserveColumn(c, p)
+	}
+}
+
+func (s *engineSink) Event(e detect.Event) {
+	if l := lineOf(engine.EventPoint(e)); len(l) > 0 {
+		s.lines = append(s.lines, l)
+	}
+	if s.d.store != nil {
+		s.d.store.ObserveEvent(e)
+	}
+	s.d.log.Info("event", "site", e.Site, "kind", string(e.Kind), "status", string(e.Status), "time", e.Time, "summary", e.Summary)
+	if err := s.d.al.Submit(e); err != nil {
+		s.d.dm.submitErrors.Inc()
+		s.d.log.Error("alert outbox refused an event", "site", e.Site, "kind", string(e.Kind), "err", err)
+	}
+}
+
+// siteResolver maps a site as named by a payload or topic to the configured
+// id: an exact id, else a configured name or id in any letter case (ids win
+// over names), else the name unchanged (the same rule as engine.Resolve, as
+// a pure function the committer goroutine may call).
+func siteResolver(cfg *config.Config) func(string) string {
+	ids := make(map[string]bool, len(cfg.Sites))
+	names := make(map[string]string, 2*len(cfg.Sites))
+	for _, s := range cfg.Sites {
+		ids[s.ID] = true
+		if s.Name != "" {
+			if _, taken := names[strings.ToLower(s.Name)]; !taken {
+				names[strings.ToLower(s.Name)] = s.ID
+			}
+		}
+	}
+	for _, s := range cfg.Sites {
+		names[strings.ToLower(s.ID)] = s.ID
+	}
+	return func(raw string) string {
+		if ids[raw] {
+			return raw
+		}
+		if id, ok := names[strings.ToLower(strings.TrimSpace(raw))]; ok {
+			return id
+		}
+		return raw
+	}
+}
+
+// Health returns the daemon's state (safe from any goroutine).
+func (d *daemon) health() Health {
+	h := Health{BrokerConnected: d.sub.Connected(), DBConfigured: d.wr != nil, AcksPending: d.com.Pending(), BackPressure: d.com.BackPressure()}
+	if err := d.sub.LastError(); err != nil && !h.BrokerConnected {
+		h.BrokerError = err.Error()
+	}
+	st, err := d.spool.Stats()
+	h.SpoolPending, h.SpoolOldest, h.SpoolBytes, h.SpoolMaxBytes, h.DeadLetters = st.Pending, st.OldestPending, st.Bytes, st.MaxBytes, st.DeadLetters
+	cerr, _ := d.com.CommitError()
+	switch {
+	case err != nil:
+		h.SpoolError = err.Error()
+	case cerr != nil:
+		h.SpoolError = cerr.Error()
+	case h.BackPressure:
+		h.SpoolError = "full: messages are not acknowledged until the database catches up"
+	default:
+		h.SpoolOK = true
+	}
+	if d.wr != nil {
+		ok, known, lerr, _ := d.wr.Reachable()
+		h.DBReachable = ok
+		if !ok && lerr != nil {
+			h.DBError = lerr.Error()
+		} else if !known {
+			h.DBError = "not contacted yet"
+		}
+	}
+	d.hmu.Lock()
+	if time.Since(d.hAt) > 5*time.Second {
+		if p, err := d.al.Pending(); err == nil {
+			d.hPending = len(p)
+		}
+		if f, err := d.al.Failed(); err == nil {
+			d.hFailed = len(f)
+		}
+		d.hAt = time.Now()
+	}
+	h.Pending, h.Failed = d.hPending, d.hFailed
+	d.hmu.Unlock()
+	return h
+}
+
+func (d *daemon) statusHealth() status.Health {
+	h := d.health()
+	extra := map[string]string{"acks pending": fmt.Sprint(h.AcksPending), "dead letters": fmt.Sprint(h.DeadLetters)}
+	if h.BackPressure {
+		extra["back-pressure"] = "spool full: messages not acknowledged"
+	}
+	return status.Health{BrokerConnected: h.BrokerConnected, SpoolDepth: int(h.SpoolPending), SpoolOldest: h.SpoolOldest,
+		DBReachable: h.DBReachable, DBNotConfigured: !h.DBConfigured, PendingDeliveries: h.Pending, FailedDeliveries: h.Failed, Extra: extra}
+}
+
+type component struct {
+	OK     bool   `json:"ok"`
+	Detail string `json:"detail,omitempty"`
+}
+
+// readiness is the /readyz body.
+type readiness struct {
+	Ready    bool      `json:"ready"`
+	Broker   component `json:"broker"`
+	Spool    component `json:"spool"`
+	Database component `json:"database"`
+}
+
+func (d *daemon) readiness() readiness {
+	h := d.health()
+	r := readiness{
+		Broker: component{OK: h.BrokerConnected, Detail: h.BrokerError},
+		Spool:  component{OK: h.SpoolOK, Detail: h.SpoolError},
+	}
+	if !h.BrokerConnected && r.Broker.Detail == "" {
+		r.Broker.Detail = "not connected"
+	}
+	switch {
+	case !h.DBConfigured:
+		r.Database = component{OK: true, Detail: "not configured: readings stay spooled"}
+	case h.DBReachable:
+		r.Database = component{OK: true}
+	default:
+		// Not fatal for readiness while the spool takes the readings.
+		r.Database = component{OK: h.SpoolOK, Detail: fmt.Sprintf("unreachable, spooling (%d readings waiting): %s", h.SpoolPending, h.DBError)}
+	}
+	r.Ready = r.Broker.OK && r.Spool.OK && r.Database.OK
+	return r
+}
+
+func (d *daemon) handler() http.Handler {
+	mux := http.NewServeMux()
+	mux.HandleFunc("GET /healthz", func(w http.ResponseWriter, _ *http.Request) {
+		w.Header().Set("Content-Type", "text/plain; charset=utf-8")
+		w.Header().Set("Cache-Control", "no-store")
+		fmt.Fprintln(w, "ok")
+	})
+	mux.HandleFunc("GET /readyz", func(w http.ResponseWriter, _ *http.Request) {
+		r := d.readiness()
+		w.Header().Set("Content-Type", "application/json")
+		w.Header().Set("Cache-Control", "no-store")
+		if !r.Ready {
+			w.WriteHeader(http.StatusServiceUnavailable)
+		}
+		_ = json.NewEncoder(w).Encode(r)
+	})
+	rejected := func(reason string) { d.dm.httpRejected.WithLabelValues(reason).Inc() }
+	mux.Handle("GET /metrics", httpauth.WrapCounting(promhttp.HandlerFor(d.reg, promhttp.HandlerOpts{Registry: d.reg}), d.cfg.HTTP, rejected))
+	root := d.o.Extra
+	if root == nil {
+		po := d.o.StatusPage
+		if po.Logger == nil {
+			po.Logger = d.log.With("component", "status")
+		}
+		root = status.Handler(d.store, d.statusHealth, po)
+	}
+	mux.Handle("/", httpauth.WrapCounting(root, d.cfg.HTTP, rejected))
+	return mux
+}
+
+func be64(v uint64) []byte {
+	var b [8]byte
+	binary.BigEndian.PutUint64(b[:], v)
+	return b[:]
+}
+
+func u64(b []byte) uint64 {
+	if len(b) != 8 {
+		return 0
+	}
+	return binary.BigEndian.Uint64(b)
+}
+
+func clone(b []byte) []byte {
+	if b == nil {
+		return nil
+	}
+	return append([]byte(nil), b...)
+}

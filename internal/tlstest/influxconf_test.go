@@ -1,0 +1,143 @@
+package tlstest
+
+import (
+	"context"
+	"fmt"
+	"net/http"
+	"net/url"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"syscall"
+	"testing"
+	"time"
+
+	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
+
+	"holomix/internal/testenv"
+)
+
+// TestExampleInfluxConfig starts InfluxDB 1.8 with deploy/influxdb.conf (its
+// directories and ports moved into the test's temporary directory and free
+// loopback ports, nothing else changed) and checks what the file promises:
+// authentication is on (an anonymous query gets 401), and once the admin user
+// exists the v2 write and Flux query endpoints holomix uses work with a
+// "user:password" token.
+func TestExampleInfluxConfig(t *testing.T) {
+	root, err := testenv.RepoRoot()
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := os.ReadFile(filepath.Join(root, "deploy", "influxdb.conf"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	httpPort, rpcPort := testenv.FreePort(t), testenv.FreePort(t)
+	conf := string(b)
+	for _, promise := range []string{"auth-enabled = true", "flux-enabled = true", "reporting-disabled = true"} {
+		if !strings.Contains(conf, promise) {
+			t.Fatalf("deploy/influxdb.conf no longer says %q", promise)
+		}
+	}
+	for from, to := range map[string]string{
+		"/var/lib/influxdb": dir,
+		`"127.0.0.1:8086"`:  fmt.Sprintf(`"127.0.0.1:%d"`, httpPort),
+		`"127.0.0.1:8088"`:  fmt.Sprintf(`"127.0.0.1:%d"`, rpcPort),
+	} {
+		if !strings.Contains(conf, from) {
+			t.Fatalf("deploy/influxdb.conf no longer contains %q", from)
+		}
+		conf = strings.ReplaceAll(conf, from, to)
+	}
+	path := filepath.Join(dir, "influxdb.conf")
+	if err := os.WriteFile(path, []byte(conf), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cmd := exec.Command(testenv.InfluxdPath(t), "run", "-config", path)
+	logf, err := os.Create(filepath.Join(dir, "influxd.log"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	cmd.Stdout, cmd.Stderr = logf, logf
+	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
+	if err := cmd.Start(); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		_ = cmd.Process.Signal(syscall.SIGTERM)
+		done := make(chan struct{})
+		go func() { _ = cmd.Wait(); close(done) }()
+		select {
+		case <-done:
+		case <-time.After(10 * time.Second):
+			_ = cmd.Process.Kill()
+			<-done
+		}
+		logf.Close()
+	})
+	base := fmt.Sprintf("http://127.0.0.1:%d", httpPort)
+	logTail := func() string { b, _ := os.ReadFile(logf.Name()); return string(b) }
+	for deadline := time.Now().Add(60 * time.Second); ; time.Sleep(100 * time.Millisecond) {
+		resp, err := http.Get(base + "/ping")
+		if err == nil {
+			resp.Body.Close()
+			if resp.StatusCode == http.StatusNoContent {
+				break
+			}
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("influxd with deploy/influxdb.conf not ready: %v\n%s", err, logTail())
+		}
+	}
+	q := func(user, pass, stmt string) int {
+		req, _ := http.NewRequest(http.MethodPost, base+"/query", strings.NewReader(url.Values{"q": {stmt}}.Encode()))
+		req.Header.Set("Content-Type", "application/x-www-form-urlencoded")
+		if user != "" {
+			req.SetBasicAuth(user, pass)
+		}
+		resp, err := http.DefaultClient.Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		return resp.StatusCode
+	}
+	// The first admin may be created anonymously, as the file's comment says.
+	if code := q("", "", `CREATE USER admin WITH PASSWORD 'adm-pw-6620' WITH ALL PRIVILEGES`); code != http.StatusOK {
+		t.Fatalf("create admin: HTTP %d\n%s", code, logTail())
+	}
+	if code := q("", "", "SHOW DATABASES"); code != http.StatusUnauthorized {
+		t.Fatalf("anonymous query: HTTP %d, want 401 (auth-enabled)", code)
+	}
+	if code := q("admin", "adm-pw-6620", "CREATE DATABASE lake"); code != http.StatusOK {
+		t.Fatalf("create database: HTTP %d", code)
+	}
+	client := influxdb2.NewClient(base, "admin:adm-pw-6620")
+	defer client.Close()
+	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
+	defer cancel()
+	if err := client.WriteAPIBlocking("", "lake/autogen").WriteRecord(ctx, "water_temperature,depth_m=18,site=larchmere qc=0i,temp_c=4.02 1795000000000000000"); err != nil {
+		t.Fatalf("v2 write: %v", err)
+	}
+	res, err := client.QueryAPI("").Query(ctx, `from(bucket: "lake/autogen") |> range(start: 2026-01-01T00:00:00Z, stop: 2027-01-01T00:00:00Z) |> filter(fn: (r) => r._field == "temp_c")`)
+	if err != nil {
+		t.Fatalf("flux query (flux-enabled): %v", err)
+	}
+	n := 0
+	for res.Next() {
+		if res.Record().Value() != 4.02 {
+			t.Fatalf("read back %v", res.Record().Value())
+		}
+		n++
+	}
+	if res.Err() != nil || n != 1 {
+		t.Fatalf("flux result: %d records, %v", n, res.Err())
+	}
+	bad := influxdb2.NewClient(base, "admin:wrong")
+	defer bad.Close()
+	if err := bad.WriteAPIBlocking("", "lake/autogen").WriteRecord(ctx, "water_temperature,depth_m=1,site=x temp_c=1 1795000000000000000"); err == nil {
+		t.Fatal("a write with a wrong password was accepted")
+	}
+}
