@@ -192,9 +192,13 @@ func (s *Site) stepIntakes(ev *evCtx, p Profile) []IntakeStatus {
 	return out
 }
 
-// stepDeepening opens intake_overturn_risk when, during stratification, the
-// mixed layer (down to the top of the metalimnion) deepens past an intake that
-// was below it, and stays past it for the hold time.
+// stepDeepening opens intake_overturn_risk when, during seasonal
+// stratification (see stepSeason), the mixed layer (down to the top of the
+// metalimnion) deepens past an intake that was below it, and stays past it
+// for the hold time. The intake's position is followed during a transient
+// stratified stretch too, but a risk opens only once the stretch counts as
+// seasonal: water cut off below a day-old thermocline is not the deep water
+// whose quality an overturn threatens.
 func (s *Site) stepDeepening(ev *evCtx, i int) {
 	is := &s.st.Intakes[i]
 	k := &s.cfg.Intakes[i]
@@ -216,7 +220,7 @@ func (s *Site) stepDeepening(ev *evCtx, i int) {
 	if !is.DeepOK {
 		is.DeepOK, is.DeepSince = true, ev.t
 	}
-	if ev.t.Sub(is.DeepSince) >= s.cfg.Hold {
+	if ev.t.Sub(is.DeepSince) >= s.cfg.Hold && s.st.Season.StratConfirmed {
 		s.openIntakeRisk(ev, i, fmt.Sprintf("the mixed layer deepened past the intake (metalimnion top %.1f m)", mt), is.DeepSince)
 		is.DeepOK = false
 	}

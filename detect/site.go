@@ -82,10 +82,10 @@ type IceSignals struct {
 	ActivityCPerH float64
 	// TopC is the last hourly mean of the top sensor, °C.
 	TopC float64
-	// NoiseCPerH is the part of the top sensor's hour-to-hour change that
-	// white sensor noise explains, °C/h (RMS), removed from TopChangeCPerH
-	// and, in proportion, from ActivityCPerH; 0 without sub-hourly data
-	// (see noiseStep).
+	// NoiseCPerH is the estimated part of the top sensor's hour-to-hour
+	// change that white sensor noise explains, °C/h (RMS), most of which is
+	// removed from TopChangeCPerH and ActivityCPerH (see noiseRemoved); 0
+	// without sub-hourly data (see noiseStep).
 	NoiseCPerH float64
 }
 

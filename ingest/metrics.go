@@ -41,7 +41,7 @@ func NewMetrics(reg prometheus.Registerer) *Metrics {
 		MessagesReceived: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "holomix_messages_received_total", Help: "MQTT messages received on subscribed topics."}),
 		ReadingsReceived: prometheus.NewCounter(prometheus.CounterOpts{
-			Name: "holomix_readings_received_total", Help: "Readings decoded from MQTT messages."}),
+			Name: "holomix_readings_received_total", Help: "Readings decoded from MQTT messages (a redelivered message counts again)."}),
 		ReadingsCommitted: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "holomix_readings_spooled_total", Help: "Readings committed to the durable spool."}),
 		ReadingsStored: prometheus.NewCounter(prometheus.CounterOpts{

@@ -142,7 +142,31 @@ type QualityControl struct {
 	sensors   map[sensorKey]*sensorState
 	limit     int // most sensors with state (maxSensors; lowered by tests)
 	untracked uint64
+
+	// Lookup cache (derived from known and sensors, rebuilt on demand):
+	// consecutive readings nearly always share a site and come in depth
+	// order, so the last site's entry and a per-site sorted list of its
+	// sensors, probed first at the position after the last hit, avoid
+	// hashing the site name and depth on every reading.
+	sites    map[string]*qcSite
+	lastSite *qcSite
 }
+
+// qcSite is the lookup cache of one site: its configured depths and its
+// sensors with state, sorted by depth.
+type qcSite struct {
+	name     string
+	known    []float64 // sorted configured depths
+	hasKnown bool      // the site has configured depths
+	kNext    int       // index of the configured depth of the last reading, +1
+	mm       []int64   // depths (mm) of the sensors with state, ascending
+	st       []*sensorState
+	next     int // index after the last hit
+}
+
+// maxSiteCache bounds the lookup cache; when full it is emptied (it holds
+// nothing that is not also in known and sensors).
+const maxSiteCache = 4096
 
 type sensorKey struct {
 	site string
@@ -166,6 +190,7 @@ type sensorState struct {
 	hasRun   bool
 	dups     []int64 // ring of recent timestamps
 	dupHead  int     // next write position once the ring is full
+	dupMax   int64   // newest timestamp ever remembered (valid when len(dups) > 0)
 }
 
 // NewQualityControl builds a QualityControl; zero fields of c take the defaults.
@@ -181,7 +206,60 @@ func NewQualityControl(c QCConfig) *QualityControl {
 		known[site] = s
 	}
 	c.KnownDepths = known
-	return &QualityControl{c: c, known: known, sensors: make(map[sensorKey]*sensorState), limit: maxSensors}
+	return &QualityControl{c: c, known: known, sensors: make(map[sensorKey]*sensorState), limit: maxSensors,
+		sites: make(map[string]*qcSite)}
+}
+
+// site returns the lookup cache entry of a site.
+func (q *QualityControl) site(name string) *qcSite {
+	if ls := q.lastSite; ls != nil && ls.name == name {
+		return ls
+	}
+	cs := q.sites[name]
+	if cs == nil {
+		if len(q.sites) >= maxSiteCache {
+			clear(q.sites)
+		}
+		ds, has := q.known[name]
+		cs = &qcSite{name: name, known: ds, hasKnown: has}
+		q.sites[name] = cs
+	}
+	q.lastSite = cs
+	return cs
+}
+
+// resetCache empties the lookup cache (after Restore replaced the sensors).
+func (q *QualityControl) resetCache() {
+	q.sites = make(map[string]*qcSite)
+	q.lastSite = nil
+}
+
+// find returns the cached state of the sensor at depth mm, or nil.
+func (cs *qcSite) find(mm int64) *sensorState {
+	n := len(cs.mm)
+	if n == 0 {
+		return nil
+	}
+	i := cs.next
+	if i >= n {
+		i = 0
+	}
+	if cs.mm[i] != mm {
+		i = sort.Search(n, func(j int) bool { return cs.mm[j] >= mm })
+		if i == n || cs.mm[i] != mm {
+			return nil
+		}
+	}
+	cs.next = i + 1
+	return cs.st[i]
+}
+
+// add caches the state of the sensor at depth mm (not yet cached).
+func (cs *qcSite) add(mm int64, s *sensorState) {
+	i := sort.Search(len(cs.mm), func(j int) bool { return cs.mm[j] >= mm })
+	cs.mm = slices.Insert(cs.mm, i, mm)
+	cs.st = slices.Insert(cs.st, i, s)
+	cs.next = i + 1
 }
 
 // Sensors returns the number of sensors with state.
@@ -191,26 +269,41 @@ func (q *QualityControl) Sensors() int { return len(q.sensors) }
 // sensor limit was reached.
 func (q *QualityControl) Untracked() uint64 { return q.untracked }
 
-// key finds the sensor of a reading; ok is false for an unknown depth at a
-// site with configured depths.
-func (q *QualityControl) key(site string, depth float64) (sensorKey, bool) {
-	ds, has := q.known[site]
-	if !has {
-		return sensorKey{site: site, mm: int64(math.Round(depth * 1000))}, true
+// depthKey finds the sensor depth (mm) of a reading at site cs; ok is false
+// for an unknown depth at a site with configured depths.
+func (q *QualityControl) depthKey(cs *qcSite, depth float64) (int64, bool) {
+	if !cs.hasKnown {
+		return int64(math.Round(depth * 1000)), true
+	}
+	ds := cs.known
+	// Readings usually come in depth order: try the depth after the last
+	// one. It is the answer when it is within tolerance, strictly nearer
+	// than the one below and no farther than the one above (the search
+	// below prefers the lower of two equally near depths).
+	if g := cs.kNext; len(ds) > 0 {
+		if g >= len(ds) {
+			g = 0
+		}
+		d := math.Abs(ds[g] - depth)
+		if d <= q.c.DepthTolerance && (g == 0 || math.Abs(ds[g-1]-depth) > d) && (g+1 == len(ds) || math.Abs(ds[g+1]-depth) >= d) {
+			cs.kNext = g + 1
+			return int64(math.Round(ds[g] * 1000)), true
+		}
 	}
 	i := sort.SearchFloat64s(ds, depth)
-	best, bestD := 0.0, math.Inf(1)
+	best, bestD, bestJ := 0.0, math.Inf(1), 0
 	for _, j := range [2]int{i - 1, i} {
 		if j >= 0 && j < len(ds) {
 			if dd := math.Abs(ds[j] - depth); dd < bestD {
-				best, bestD = ds[j], dd
+				best, bestD, bestJ = ds[j], dd, j
 			}
 		}
 	}
 	if bestD > q.c.DepthTolerance {
-		return sensorKey{}, false
+		return 0, false
 	}
-	return sensorKey{site: site, mm: int64(math.Round(best * 1000))}, true
+	cs.kNext = bestJ + 1
+	return int64(math.Round(best * 1000)), true
 }
 
 // Check sets the flags of r (r.QC |= …) and returns the flags it set. recv is
@@ -229,21 +322,27 @@ func (q *QualityControl) Check(r *Reading, recv time.Time) QC {
 		r.QC |= f
 		return f
 	}
-	k, ok := q.key(r.Site, r.Depth)
+	cs := q.site(r.Site)
+	mm, ok := q.depthKey(cs, r.Depth)
 	if !ok {
 		f |= QCUnknownDepth
 		r.QC |= f
 		return f
 	}
-	s := q.sensors[k]
+	s := cs.find(mm)
 	if s == nil {
-		if len(q.sensors) >= q.limit {
-			q.untracked++
-			r.QC |= f
-			return f
+		k := sensorKey{site: r.Site, mm: mm}
+		s = q.sensors[k]
+		if s == nil {
+			if len(q.sensors) >= q.limit {
+				q.untracked++
+				r.QC |= f
+				return f
+			}
+			s = &sensorState{}
+			q.sensors[k] = s
 		}
-		s = &sensorState{}
-		q.sensors[k] = s
+		cs.add(mm, s)
 	}
 	f |= s.check(r, &q.c, f|r.QC&Excluding)
 	r.QC |= f
@@ -287,6 +386,11 @@ func (s *sensorState) check(r *Reading, c *QCConfig, prior QC) QC {
 		return f
 	}
 	cur := sample{t: tn, v: v}
+	if s.nearReference(v, tn, c.SpikeC) {
+		s.accept(cur)
+		s.nPend = 0
+		return f
+	}
 	med, ok := median(s.hist[:s.nHist], tn, false, spikeMinHistory)
 	if !ok || math.Abs(v-med) <= c.SpikeC {
 		s.accept(cur)
@@ -313,6 +417,24 @@ func (s *sensorState) check(r *Reading, c *QCConfig, prior QC) QC {
 	return f | QCSpike
 }
 
+// nearReference is a shortcut of the spike test of an in-order reading:
+// true when the test passes without computing the median, because there
+// are too few reference values or v is within lim of every one of them (the
+// median lies between the smallest and the largest, and rounding is
+// monotonic, so |v − median| ≤ lim then holds exactly as computed). False
+// means: compute the median.
+func (s *sensorState) nearReference(v float64, tn int64, lim float64) bool {
+	n := 0
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for _, x := range s.hist[:s.nHist] {
+		if d := tn - x.t; d >= 0 && d <= int64(spikeMaxAge) {
+			n++
+			lo, hi = min(lo, x.v), max(hi, x.v)
+		}
+	}
+	return n < spikeMinHistory || (v-lo <= lim && hi-v <= lim)
+}
+
 func (s *sensorState) accept(x sample) {
 	if s.nHist == spikeHistory {
 		copy(s.hist[:], s.hist[1:])
@@ -322,7 +444,13 @@ func (s *sensorState) accept(x sample) {
 	s.nHist++
 }
 
+// isDuplicate reports whether tn is among the remembered timestamps. Times
+// mostly increase: one newer than every timestamp ever remembered cannot be
+// among them, which spares the scan.
 func (s *sensorState) isDuplicate(tn int64) bool {
+	if len(s.dups) == 0 || tn > s.dupMax {
+		return false
+	}
 	for _, t := range s.dups {
 		if t == tn {
 			return true
@@ -332,6 +460,9 @@ func (s *sensorState) isDuplicate(tn int64) bool {
 }
 
 func (s *sensorState) remember(tn int64, window int) {
+	if len(s.dups) == 0 || tn > s.dupMax {
+		s.dupMax = tn
+	}
 	if len(s.dups) < window {
 		if s.dups == nil {
 			s.dups = make([]int64, 0, window)
@@ -362,12 +493,20 @@ func median(xs []sample, tn int64, either bool, minN int) (float64, bool) {
 	if n < minN || n == 0 {
 		return 0, false
 	}
-	v := buf[:n]
-	slices.Sort(v)
-	if n%2 == 1 {
-		return v[n/2], true
+	// Insertion sort of at most spikeHistory finite values (accepted values
+	// and spike candidates are always finite).
+	for i := 1; i < n; i++ {
+		x := buf[i]
+		j := i
+		for ; j > 0 && buf[j-1] > x; j-- {
+			buf[j] = buf[j-1]
+		}
+		buf[j] = x
 	}
-	return (v[n/2-1] + v[n/2]) / 2, true
+	if n%2 == 1 {
+		return buf[n/2], true
+	}
+	return (buf[n/2-1] + buf[n/2]) / 2, true
 }
 
 // dropOlder removes, in place, the samples older than minT.

@@ -115,5 +115,6 @@ func (q *QualityControl) Restore(data []byte) error {
 		sensors[k] = s
 	}
 	q.sensors = sensors
+	q.resetCache()
 	return nil
 }

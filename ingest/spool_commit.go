@@ -272,6 +272,8 @@ func (c *Committer) linger(ctx context.Context) {
 func (c *Committer) drain() error {
 	c.mu.Lock()
 	c.closed = true
+	close(c.space) // wake Enqueue calls waiting for room: they return ErrCommitterClosed
+	c.space = make(chan struct{})
 	c.mu.Unlock()
 	ctx, cancel := context.WithTimeout(context.Background(), 2*time.Second)
 	defer cancel()
@@ -298,6 +300,7 @@ func (c *Committer) commitOnce(ctx context.Context) (progressed bool, err error)
 		c.mu.Unlock()
 		return false, nil
 	}
+	freed := c.spool.Freed() // before measuring: a release after this wakes the wait below
 	room := c.spool.Room()
 	empty := c.spool.Empty()
 	k, readings := 0, 0
@@ -327,7 +330,7 @@ func (c *Committer) commitOnce(ctx context.Context) (progressed bool, err error)
 	if k == 0 {
 		// Wait for the writer to free space, then let the caller retry.
 		select {
-		case <-c.spool.Freed():
+		case <-freed:
 		case <-time.After(time.Second):
 		case <-ctx.Done():
 		}
@@ -338,13 +341,12 @@ func (c *Committer) commitOnce(ctx context.Context) (progressed bool, err error)
 	defer c.stateMu.Unlock()
 	now := time.Now().UTC()
 	entries, dead := c.entries[:0], c.dead[:0]
-	dupN, recvN := 0, 0
+	dupN := 0
 	for _, msg := range batch {
 		if msg.Err != nil || msg.Reason != "" {
 			dead = append(dead, c.deadLetter(msg, now))
 			continue
 		}
-		recvN += len(msg.Readings)
 		for _, r := range msg.Readings {
 			if c.o.Resolve != nil {
 				r.Site = c.o.Resolve(r.Site)
@@ -388,7 +390,6 @@ func (c *Committer) commitOnce(ctx context.Context) (progressed bool, err error)
 	c.m.CommitDuration.Observe(time.Since(start).Seconds())
 	c.m.CommitReadings.Observe(float64(len(entries)))
 	c.m.ReadingsCommitted.Add(float64(len(entries)))
-	c.m.ReadingsReceived.Add(float64(recvN))
 	c.m.ReadingsDuplicate.Add(float64(dupN))
 	for _, d := range dead {
 		c.m.MessagesRejected.WithLabelValues(d.Reason).Inc()

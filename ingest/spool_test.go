@@ -210,12 +210,18 @@ func TestSpoolReopenKeepsEverything(t *testing.T) {
 	if err := s.AppendLinesAfter(0, [][]byte{[]byte("water_column,site=a schmidt=1 1")}); err != nil {
 		t.Fatal(err)
 	}
+	if err := s.Writable(); err != nil {
+		t.Fatalf("Writable: %v", err)
+	}
 	before, _ := s.Stats()
 	if err := s.Close(); err != nil {
 		t.Fatal(err)
 	}
 	if _, err := s.Commit(es[:1], nil); !errors.Is(err, ErrSpoolClosed) {
 		t.Fatalf("commit after close: %v, want ErrSpoolClosed", err)
+	}
+	if err := s.Writable(); !errors.Is(err, ErrSpoolClosed) {
+		t.Fatalf("Writable after close: %v", err)
 	}
 	s, err = OpenSpool(path, SpoolOptions{})
 	if err != nil {
@@ -307,12 +313,12 @@ func TestSpoolDerivedPoints(t *testing.T) {
 // each committed sequence number, kills it with SIGKILL mid-stream, and checks
 // that every reported spReading is in the reopened spool, intact.
 func TestSpoolSurvivesKill(t *testing.T) {
-	if os.Getenv("HOLOMIX_SPOOL_CHILD") != "" {
-		t.Skip("child mode runs in TestSpoolKillChild")
+	if path := os.Getenv("HOLOMIX_SPOOL_CHILD"); path != "" {
+		spKillChild(path) // the child process: commit until killed
 	}
 	dir := t.TempDir()
 	path := filepath.Join(dir, "spool.db")
-	cmd := exec.Command(os.Args[0], "-test.run=^TestSpoolKillChild$", "-test.count=1")
+	cmd := exec.Command(os.Args[0], "-test.run=^TestSpoolSurvivesKill$", "-test.count=1")
 	cmd.Env = append(os.Environ(), "HOLOMIX_SPOOL_CHILD="+path)
 	out, err := cmd.StdoutPipe()
 	if err != nil {
@@ -321,22 +327,34 @@ func TestSpoolSurvivesKill(t *testing.T) {
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}
-	sc := bufio.NewScanner(out)
+	// Read the child's reports in the background, so that it is busy
+	// committing (not blocked on a full pipe) when it is killed.
+	var mu sync.Mutex
 	var acked uint64
-	for sc.Scan() {
-		line := sc.Text()
-		if v, ok := strings.CutPrefix(line, "committed "); ok {
-			acked, _ = strconv.ParseUint(v, 10, 64)
-			if acked >= 30000 {
-				break
+	readDone := make(chan struct{})
+	go func() {
+		defer close(readDone)
+		sc := bufio.NewScanner(out)
+		for sc.Scan() {
+			if v, ok := strings.CutPrefix(sc.Text(), "committed "); ok {
+				n, _ := strconv.ParseUint(v, 10, 64)
+				mu.Lock()
+				acked = n
+				mu.Unlock()
 			}
 		}
-	}
+	}()
+	spWaitFor(t, "30,000 committed readings", 60*time.Second, func() bool {
+		mu.Lock()
+		defer mu.Unlock()
+		return acked >= 30000
+	})
+	time.Sleep(7 * time.Millisecond) // land the kill at an arbitrary point of a commit
 	cmd.Process.Kill()
 	cmd.Wait()
-	if acked < 30000 {
-		t.Fatalf("child reported only %d committed readings before it ended", acked)
-	}
+	<-readDone
+	mu.Lock()
+	defer mu.Unlock()
 	s, err := OpenSpool(path, SpoolOptions{})
 	if err != nil {
 		t.Fatalf("reopen after kill -9: %v", err)
@@ -361,12 +379,9 @@ func TestSpoolSurvivesKill(t *testing.T) {
 	t.Logf("killed after %d reported commits; %d readings in the reopened spool", acked, len(got))
 }
 
-// TestSpoolKillChild is the child of TestSpoolSurvivesKill (it does nothing in a normal run).
-func TestSpoolKillChild(t *testing.T) {
-	path := os.Getenv("HOLOMIX_SPOOL_CHILD")
-	if path == "" {
-		return
-	}
+// spKillChild is the child process of TestSpoolSurvivesKill: it commits
+// batches of 100 readings and prints each last sequence number, forever.
+func spKillChild(path string) {
 	s, err := OpenSpool(path, SpoolOptions{})
 	if err != nil {
 		fmt.Println("error", err)
@@ -748,5 +763,45 @@ func BenchmarkCommitterWindow(b *testing.B) {
 			b.ReportMetric(h.GetSampleSum()/float64(h.GetSampleCount())*1e3, "ms/commit")
 			b.ReportMetric(float64(b.N)/float64(h.GetSampleCount()), "readings/commit")
 		})
+	}
+}
+
+// TestCommitterDrainReleasesBlockedEnqueue: under back-pressure with a full
+// queue, an Enqueue waiting for room returns once the committer drains, so a
+// shutdown never hangs on the broker connection's handler.
+func TestCommitterDrainReleasesBlockedEnqueue(t *testing.T) {
+	s := spOpen(t, SpoolOptions{MaxBytes: 200})
+	c := NewCommitter(CommitterOptions{Spool: s, QueueMax: 3})
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	go func() { done <- c.Run(ctx) }()
+	i := 0
+	spWaitFor(t, "back-pressure", 5*time.Second, func() bool {
+		if c.Pending() < 3 {
+			i++
+			c.Enqueue(context.Background(), &Message{Recv: spT0, Readings: []Reading{spReading("pond", 1, spT0.Add(time.Duration(i)*time.Minute), 5)}})
+		}
+		return c.BackPressure() && c.Pending() == 3
+	})
+	blocked := make(chan error, 1)
+	go func() {
+		blocked <- c.Enqueue(context.Background(), &Message{Recv: spT0, Readings: []Reading{spReading("pond", 2, spT0, 5)}})
+	}()
+	select {
+	case err := <-blocked:
+		t.Fatalf("Enqueue did not block on a full queue: %v", err)
+	case <-time.After(100 * time.Millisecond):
+	}
+	cancel()
+	select {
+	case err := <-blocked:
+		if !errors.Is(err, ErrCommitterClosed) {
+			t.Fatalf("blocked Enqueue returned %v, want ErrCommitterClosed", err)
+		}
+	case <-time.After(5 * time.Second):
+		t.Fatal("blocked Enqueue still waiting after the drain")
+	}
+	if err := <-done; err != nil {
+		t.Fatal(err)
 	}
 }

@@ -475,7 +475,11 @@ func (w *Writer) send(ctx context.Context, body string, n int, retry bool) error
 			delay = min(retryAfter, w.o.BackoffMax)
 		}
 		if n, ok := w.rl.allow("write_"+class, time.Now()); ok {
-			w.log.Warn("database write failed; readings stay in the spool, retrying",
+			lvl := slog.LevelWarn
+			if class == "config" {
+				lvl = slog.LevelError // credentials or bucket: an operator must act
+			}
+			w.log.Log(ctx, lvl, "database write failed; readings stay in the spool, retrying",
 				"err", err, "class", class, "status", status, "points", n, "attempt", attempt+1,
 				"retry_in", delay.Round(time.Millisecond), "suppressed", n)
 		}

@@ -7,7 +7,10 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"os"
+	"os/signal"
 	"strings"
+	"syscall"
 
 	"holomix/config"
 	live "holomix/internal/daemon"
@@ -18,7 +21,13 @@ const runUsage = `usage: holomix run -c FILE
 Run the daemon: subscribe to the buoys' MQTT topics, spool every reading
 durably, store it in InfluxDB, follow each lake's water column and send
 alerts. SIGTERM or SIGINT drains (the batch in flight is committed and
-acknowledged, detection state is saved) and exits 0.`
+acknowledged, detection state is saved) and exits 0. SIGHUP reloads the
+file: detector thresholds, alert receivers and the log level apply at once,
+other changes are logged as needing a restart.
+
+Memory: the Go runtime grows its heap to about twice the live data. To hold
+the process under a budget set GOMEMLIMIT (e.g. GOMEMLIMIT=120MiB for 1,000
+sites of 30 sensors).`
 
 func runDaemon(ctx context.Context, e *env, args []string) int {
 	fs := flag.NewFlagSet("run", flag.ContinueOnError)
@@ -42,7 +51,8 @@ func runDaemon(ctx context.Context, e *env, args []string) int {
 	if !ok {
 		return 2
 	}
-	log, err := newLogger(e.stderr, cfg.Log)
+	level := new(slog.LevelVar)
+	log, err := newLogger(e.stderr, cfg.Log, level)
 	if err != nil {
 		fmt.Fprintf(e.stderr, "holomix run: %v\n", err)
 		return 2
@@ -51,7 +61,31 @@ func runDaemon(ctx context.Context, e *env, args []string) int {
 		log.Warn("configuration", "warning", w)
 	}
 	log.Info("starting", "version", version, "config", *path, "storage_dir", cfg.Storage.Dir)
-	if err := live.Run(ctx, live.Options{Config: cfg, Logger: log}); err != nil {
+	// SIGHUP reloads the configuration file (systemctl reload).
+	hup := make(chan os.Signal, 1)
+	signal.Notify(hup, syscall.SIGHUP)
+	defer signal.Stop(hup)
+	reload := make(chan *config.Config)
+	go func() {
+		for {
+			select {
+			case <-ctx.Done():
+				return
+			case <-hup:
+			}
+			nc, err := config.LoadWith(*path, config.Options{Getenv: e.getenv})
+			if err != nil {
+				log.Error("configuration reload refused; the running configuration stays", "config", *path, "err", err)
+				continue
+			}
+			select {
+			case reload <- nc:
+			case <-ctx.Done():
+				return
+			}
+		}
+	}()
+	if err := live.Run(ctx, live.Options{Config: cfg, Logger: log, LogLevel: level, Reload: reload}); err != nil {
 		log.Error("daemon failed", "err", err)
 		return 1
 	}
@@ -59,8 +93,8 @@ func runDaemon(ctx context.Context, e *env, args []string) int {
 }
 
 // newLogger builds the structured logger of config.Log: text or json, at
-// the given level.
-func newLogger(w io.Writer, c config.Log) (*slog.Logger, error) {
+// the configured level, which is stored in (and later read from) level.
+func newLogger(w io.Writer, c config.Log, level *slog.LevelVar) (*slog.Logger, error) {
 	var lvl slog.Level
 	switch strings.ToLower(c.Level) {
 	case "", "info":
@@ -74,7 +108,8 @@ func newLogger(w io.Writer, c config.Log) (*slog.Logger, error) {
 	default:
 		return nil, fmt.Errorf("log.level %q: want debug, info, warn or error", c.Level)
 	}
-	o := &slog.HandlerOptions{Level: lvl}
+	level.Set(lvl)
+	o := &slog.HandlerOptions{Level: level}
 	switch strings.ToLower(c.Format) {
 	case "", "text":
 		return slog.New(slog.NewTextHandler(w, o)), nil

@@ -19,7 +19,8 @@ import (
 
 // TestRunConnectsSubscribesAndStopsOnSIGTERM: `holomix run -c FILE` against a
 // real Mosquitto logs structured "connected" and "subscribed" lines (JSON,
-// one object per line) and exits 0 within 2 s of SIGTERM when idle.
+// one object per line), reloads its file on SIGHUP, and exits 0 within 2 s of
+// SIGTERM when idle.
 func TestRunConnectsSubscribesAndStopsOnSIGTERM(t *testing.T) {
 	bin := filepath.Join(t.TempDir(), "holomix")
 	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
@@ -94,6 +95,30 @@ log:
 			}
 		case <-timeout:
 			t.Fatalf("no connected/subscribed lines within 20 s: %v", all)
+		}
+	}
+	// SIGHUP reloads the file instead of ending the process.
+	if err := os.WriteFile(path, []byte(strings.Replace(cfg, "log:\n  format: json\n", "log:\n  format: json\n  level: debug\ndetect:\n  hold_time: 3h\n", 1)), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	if err := cmd.Process.Signal(syscall.SIGHUP); err != nil {
+		t.Fatal(err)
+	}
+	for reloaded := false; !reloaded; {
+		select {
+		case m, ok := <-lines:
+			if !ok {
+				t.Fatalf("daemon exited on SIGHUP: %v", all)
+			}
+			all = append(all, m)
+			if m["msg"] == "configuration reloaded" {
+				if fmt.Sprint(m["applied"]) != "[log.level detect]" {
+					t.Fatalf("reload line: %v", m)
+				}
+				reloaded = true
+			}
+		case <-time.After(10 * time.Second):
+			t.Fatalf("no reload line within 10 s of SIGHUP: %v", all)
 		}
 	}
 	resp, err := http.Get("http://" + listen + "/healthz")

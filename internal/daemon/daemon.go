@@ -87,6 +87,19 @@ type Options struct {
 	// OnReady is called once storage is open, the HTTP server listens and the
 	// subscriber started connecting (tests, service notification).
 	OnReady func(Info)
+	// Reload delivers new configurations (loaded and validated by the caller,
+	// e.g. on SIGHUP). The daemon applies what config.Changes marks live
+	// (detector thresholds and hold times, alert receivers and status_url,
+	// log level) and logs every other change as needing a restart.
+	Reload <-chan *config.Config
+	// LogLevel, when set, is the level variable of Logger's handler: a reload
+	// changing log.level sets it.
+	LogLevel *slog.LevelVar
+	// Tap, when set, also receives every column and event that detection
+	// derives, just before the status page and the alert outbox do, on the
+	// detection goroutine: it must not block, and a Profile's slices are
+	// reused after the call (the demo follows data time with it).
+	Tap engine.Sink
 }
 
 // AirTemp is one air temperature for a site (°C, UTC).
@@ -121,23 +134,26 @@ type Health struct {
 }
 
 type daemon struct {
-	o     Options
-	cfg   *config.Config
-	log   *slog.Logger
-	reg   *prometheus.Registry
-	m     *ingest.Metrics
-	dm    *daemonMetrics
-	dir   string
-	spool *ingest.Spool
-	state *bolt.DB
-	com   *ingest.Committer
-	sub   *ingest.Subscriber
-	wr    *ingest.Writer // nil without a database URL
-	eng   *engine.Engine
-	sink  *engineSink
-	al    *alert.Dispatcher // nil when the outbox could not be opened
-	store *status.Store
-	ckInt time.Duration
+	o        Options
+	cfg      *config.Config
+	log      *slog.Logger
+	reg      *prometheus.Registry
+	m        *ingest.Metrics
+	dm       *daemonMetrics
+	dir      string
+	spool    *ingest.Spool
+	state    *bolt.DB
+	com      *ingest.Committer
+	sub      *ingest.Subscriber
+	wr       *ingest.Writer // nil without a database URL
+	eng      *engine.Engine
+	sink     *engineSink
+	alMu     sync.RWMutex // guards al against the health readers during a reload
+	al       *alert.Dispatcher
+	alCancel context.CancelFunc
+	alDone   chan error
+	store    *status.Store
+	ckInt    time.Duration
 
 	feedWake chan struct{}
 	air      chan AirTemp // air temperatures from air_topic subscriptions
@@ -146,10 +162,12 @@ type daemon struct {
 	// savedBytes is the size of the last checkpoint.
 	savedBytes int
 
-	hmu      sync.Mutex // guards the cached delivery counts
+	hmu      sync.Mutex // guards the cached delivery counts and spool probe
 	hAt      time.Time
 	hPending int
 	hFailed  int
+	probeAt  time.Time
+	probeErr error
 }
 
 type daemonMetrics struct {
@@ -231,7 +249,12 @@ func open(o Options) (d *daemon, err error) {
 		}
 	}()
 
-	d.reg.MustRegister(collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{}))
+	for _, c := range []prometheus.Collector{collectors.NewGoCollector(), collectors.NewProcessCollector(collectors.ProcessCollectorOpts{})} {
+		// A registry handed in may carry them already.
+		if err := d.reg.Register(c); err != nil && !errors.As(err, new(prometheus.AlreadyRegisteredError)) {
+			return nil, fmt.Errorf("daemon: metrics: %w", err)
+		}
+	}
 	d.m = ingest.NewMetrics(d.reg)
 	d.dm = newDaemonMetrics(d.reg)
 
@@ -261,18 +284,8 @@ func open(o Options) (d *daemon, err error) {
 		d.store = status.NewStore(metas, 0)
 	}
 	d.air = make(chan AirTemp, 256)
-	sites := make(map[string]alert.SiteInfo, len(cfg.Sites))
-	for _, s := range cfg.Sites {
-		loc, lerr := time.LoadLocation(s.Timezone)
-		if lerr != nil {
-			loc = time.UTC
-		}
-		sites[s.ID] = alert.SiteInfo{ID: s.ID, Name: s.Name, Location: loc}
-	}
-	d.al, err = alert.Open(alert.Options{Dir: d.dir, Receivers: cfg.Alerts.Receivers, StatusURL: cfg.Alerts.StatusURL,
-		Sites: sites, Logger: d.log.With("component", "alert"), Registerer: d.reg})
-	if err != nil {
-		return nil, fmt.Errorf("daemon: alert outbox: %w", err)
+	if d.al, err = d.openAlerts(cfg); err != nil {
+		return nil, err
 	}
 	closers = append(closers, func() { d.al.Close() })
 	d.sink = &engineSink{d: d}
@@ -326,6 +339,141 @@ func open(o Options) (d *daemon, err error) {
 		d.log.Warn("no influx.url: readings stay in the spool until it fills, then messages are no longer acknowledged")
 	}
 	return d, nil
+}
+
+// openAlerts opens the alert outbox (storage.dir/outbox.db) for cfg.
+func (d *daemon) openAlerts(cfg *config.Config) (*alert.Dispatcher, error) {
+	ao, err := alert.ConfigOptions(cfg)
+	if err != nil {
+		return nil, fmt.Errorf("daemon: %w", err)
+	}
+	ao.Logger, ao.Registerer = d.log.With("component", "alert"), d.reg
+	al, err := alert.Open(ao)
+	if err != nil {
+		return nil, fmt.Errorf("daemon: alert outbox: %w", err)
+	}
+	return al, nil
+}
+
+func (d *daemon) startAlerts() {
+	ctx, cancel := context.WithCancel(context.Background())
+	done := make(chan error, 1)
+	al := d.dispatcher()
+	go func() { done <- al.Run(ctx) }()
+	d.alCancel, d.alDone = cancel, done
+}
+
+func (d *daemon) stopAlerts() {
+	d.alCancel()
+	if err := <-d.alDone; err != nil {
+		d.log.Warn("alert dispatcher stopped with an error", "err", err)
+	}
+}
+
+func (d *daemon) dispatcher() *alert.Dispatcher {
+	d.alMu.RLock()
+	defer d.alMu.RUnlock()
+	return d.al
+}
+
+// reload applies the live changes of nc (on the feeder goroutine, which owns
+// the engine and submits to the dispatcher) and logs the others.
+func (d *daemon) reload(nc *config.Config) {
+	changes := config.Changes(d.cfg, nc)
+	if len(changes) == 0 {
+		d.log.Info("configuration reloaded: no changes")
+		return
+	}
+	merged := *d.cfg
+	var applied, restart []string
+	var detectChanged, alertsChanged bool
+	for _, c := range changes {
+		switch {
+		case !c.Live:
+			restart = append(restart, c.Path+" "+c.What)
+		case strings.HasPrefix(c.Path, "detect."):
+			detectChanged = true
+		case strings.HasPrefix(c.Path, "alerts."):
+			alertsChanged = true
+		case c.Path == "log.level":
+			if d.o.LogLevel == nil {
+				restart = append(restart, c.Path+" "+c.What)
+				continue
+			}
+			var lv slog.Level
+			if err := lv.UnmarshalText([]byte(nc.Log.Level)); err != nil {
+				d.log.Error("configuration reload: log level not applied", "level", nc.Log.Level, "err", err)
+				continue
+			}
+			d.o.LogLevel.Set(lv)
+			merged.Log.Level = nc.Log.Level
+			applied = append(applied, c.Path)
+		default:
+			restart = append(restart, c.Path+" "+c.What)
+		}
+	}
+	if detectChanged {
+		merged.Detect = nc.Detect
+		if err := d.swapEngine(&merged); err != nil {
+			d.log.Error("configuration reload: detector settings not applied", "err", err)
+			merged.Detect = d.cfg.Detect
+		} else {
+			applied = append(applied, "detect")
+		}
+	}
+	if alertsChanged {
+		merged.Alerts = nc.Alerts
+		if err := d.swapAlerts(&merged); err != nil {
+			d.log.Error("configuration reload: alert settings not applied", "err", err)
+			merged.Alerts = d.cfg.Alerts
+		} else {
+			applied = append(applied, "alerts")
+		}
+	}
+	d.cfg = &merged
+	d.log.Info("configuration reloaded", "applied", applied, "needs_restart", restart)
+	if len(restart) > 0 {
+		d.log.Warn("some changes take effect only after a restart", "changes", restart)
+	}
+}
+
+// swapEngine rebuilds detection with cfg's thresholds and the current state.
+func (d *daemon) swapEngine(cfg *config.Config) error {
+	snap, err := d.eng.Snapshot()
+	if err != nil {
+		return err
+	}
+	ne, err := engine.New(cfg, d.sink)
+	if err != nil {
+		return err
+	}
+	if err := ne.Restore(snap); err != nil {
+		return err
+	}
+	d.eng = ne
+	return nil
+}
+
+// swapAlerts reopens the outbox with cfg's receivers (the old dispatcher is
+// closed first: they share outbox.db). On failure the old settings return.
+func (d *daemon) swapAlerts(cfg *config.Config) error {
+	d.stopAlerts()
+	old := d.dispatcher()
+	if err := old.Close(); err != nil {
+		d.log.Warn("closing the alert outbox for a reload", "err", err)
+	}
+	al, err := d.openAlerts(cfg)
+	if err != nil {
+		var err2 error
+		if al, err2 = d.openAlerts(d.cfg); err2 != nil {
+			return fmt.Errorf("%w; reopening the previous settings failed too: %v", err, err2)
+		}
+	}
+	d.alMu.Lock()
+	d.al = al
+	d.alMu.Unlock()
+	d.startAlerts()
+	return err
 }
 
 // restore loads the last checkpoint and replays what was spooled after it.
@@ -415,9 +563,7 @@ func (d *daemon) run(ctx context.Context) error {
 		}
 		wrDone <- d.wr.Run(wrCtx)
 	}()
-	alCtx, alCancel := context.WithCancel(context.Background())
-	alDone := make(chan error, 1)
-	go func() { alDone <- d.al.Run(alCtx) }()
+	d.startAlerts()
 	subCtx, subCancel := context.WithCancel(context.Background())
 	d.sub.Start(subCtx)
 	if d.o.OnReady != nil {
@@ -454,8 +600,8 @@ func (d *daemon) run(ctx context.Context) error {
 	if err := <-comDone; err != nil && runErr == nil {
 		runErr = fmt.Errorf("daemon: spool committer: %w", err)
 	}
-	d.sub.Disconnect(200 * time.Millisecond)
 	subCancel()
+	d.sub.Disconnect(200 * time.Millisecond)
 	// 2. Feed detection what was committed and save the checkpoint.
 	feedCancel()
 	if err := <-feedDone; err != nil && runErr == nil {
@@ -476,8 +622,7 @@ func (d *daemon) run(ctx context.Context) error {
 		}
 	}
 	// 4. Alerts, HTTP, files.
-	alCancel()
-	<-alDone
+	d.stopAlerts()
 	hctx, cancel := context.WithDeadline(context.Background(), deadline)
 	_ = srv.Shutdown(hctx)
 	cancel()
@@ -494,7 +639,7 @@ func (d *daemon) closeAll() {
 	if d.wr != nil {
 		d.wr.Close()
 	}
-	if err := d.al.Close(); err != nil {
+	if err := d.dispatcher().Close(); err != nil {
 		d.log.Warn("closing the alert outbox", "err", err)
 	}
 	if err := d.state.Close(); err != nil {
@@ -510,7 +655,7 @@ func (d *daemon) closeAll() {
 // when that is longer (large installations), so saving state never takes more
 // than about 5 % of the time.
 func (d *daemon) feedLoop(ctx context.Context) error {
-	ext := d.o.Air
+	ext, reload := d.o.Air, d.o.Reload
 	timer := time.NewTimer(d.ckInt)
 	defer timer.Stop()
 	for {
@@ -525,6 +670,15 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 			d.checkpoint()
 			return nil
 		case <-d.feedWake:
+		case nc, ok := <-reload:
+			if ok {
+				if err := d.feedAll(); err != nil {
+					return err
+				}
+				d.reload(nc)
+			} else {
+				reload = nil
+			}
 		case a := <-d.air:
 			d.eng.AddAir(a.Site, a.Time, a.C)
 		case a, ok := <-ext:
@@ -661,15 +815,24 @@ func lineOf(p *write.Point) []byte {
 }
 
 func (s *engineSink) Column(c detect.Column, p detect.Profile) {
+	if s.d.o.Tap != nil {
+		s.d.o.Tap.Column(c, p)
+	}
 	if l := lineOf(engine.ColumnPoint(c)); len(l) > 0 {
 		s.lines = append(s.lines, l)
 	}
 	if s.d.store != nil {
 		s.d.store.ObserveColumn(c, p)
 	}
+	if s.d.o.Tap != nil {
+		s.d.o.Tap.Column(c, p)
+	}
 }
 
 func (s *engineSink) Event(e detect.Event) {
+	if s.d.o.Tap != nil {
+		s.d.o.Tap.Event(e)
+	}
 	if l := lineOf(engine.EventPoint(e)); len(l) > 0 {
 		s.lines = append(s.lines, l)
 	}
@@ -677,9 +840,12 @@ func (s *engineSink) Event(e detect.Event) {
 		s.d.store.ObserveEvent(e)
 	}
 	s.d.log.Info("event", "site", e.Site, "kind", string(e.Kind), "status", string(e.Status), "time", e.Time, "summary", e.Summary)
-	if err := s.d.al.Submit(e); err != nil {
+	if err := s.d.dispatcher().Submit(e); err != nil {
 		s.d.dm.submitErrors.Inc()
 		s.d.log.Error("alert outbox refused an event", "site", e.Site, "kind", string(e.Kind), "err", err)
+	}
+	if s.d.o.Tap != nil {
+		s.d.o.Tap.Event(e)
 	}
 }
 
@@ -720,7 +886,16 @@ func (d *daemon) health() Health {
 	}
 	st, err := d.spool.Stats()
 	h.SpoolPending, h.SpoolOldest, h.SpoolBytes, h.SpoolMaxBytes, h.DeadLetters = st.Pending, st.OldestPending, st.Bytes, st.MaxBytes, st.DeadLetters
-	cerr, _ := d.com.CommitError()
+	cerr, lastOK := d.com.CommitError()
+	if cerr == nil && time.Since(lastOK) > 30*time.Second {
+		// Idle: prove the spool still takes a write (at most every 30 s).
+		d.hmu.Lock()
+		if time.Since(d.probeAt) > 30*time.Second {
+			d.probeAt, d.probeErr = time.Now(), d.spool.Writable()
+		}
+		cerr = d.probeErr
+		d.hmu.Unlock()
+	}
 	switch {
 	case err != nil:
 		h.SpoolError = err.Error()
@@ -742,10 +917,11 @@ func (d *daemon) health() Health {
 	}
 	d.hmu.Lock()
 	if time.Since(d.hAt) > 5*time.Second {
-		if p, err := d.al.Pending(); err == nil {
+		al := d.dispatcher()
+		if p, err := al.Pending(); err == nil {
 			d.hPending = len(p)
 		}
-		if f, err := d.al.Failed(); err == nil {
+		if f, err := al.Failed(); err == nil {
 			d.hFailed = len(f)
 		}
 		d.hAt = time.Now()

@@ -3,18 +3,21 @@ package daemon
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"io"
 	"log/slog"
 	"net"
 	"net/http"
 	"path/filepath"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
 
 	"holomix/config"
+	"holomix/detect"
 	"holomix/internal/testenv"
 )
 
@@ -187,5 +190,115 @@ func TestSiteResolver(t *testing.T) {
 		if got := res(in); got != want {
 			t.Errorf("resolve %q = %q, want %q", in, got, want)
 		}
+	}
+}
+
+// dtLogBuf is a goroutine-safe log sink.
+type dtLogBuf struct {
+	mu sync.Mutex
+	b  strings.Builder
+}
+
+func (l *dtLogBuf) Write(p []byte) (int, error) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.Write(p)
+}
+
+func (l *dtLogBuf) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return l.b.String()
+}
+
+// TestRunReload: a new configuration applies detector thresholds, alert
+// receivers and the log level live and names the changes that need a restart.
+func TestRunReload(t *testing.T) {
+	mq := testenv.StartMosquitto(t, testenv.MosquittoOptions{Extra: testenv.MosquittoUserLine()})
+	cfg := dtConfig(t, mq.URL)
+	logs := &dtLogBuf{}
+	level := new(slog.LevelVar)
+	reload := make(chan *config.Config)
+	base, stop := dtRun(t, Options{Config: cfg, Reload: reload, LogLevel: level,
+		Logger: slog.New(slog.NewTextHandler(logs, &slog.HandlerOptions{Level: level}))})
+	nc := *cfg
+	nc.Detect.HoldTime = config.Duration(3 * time.Hour)
+	nc.Log.Level = "debug"
+	nc.MQTT.KeepAlive = config.Duration(45 * time.Second)
+	nc.Alerts.Receivers = []config.Receiver{{Name: "journal", Type: "log", MinSeverity: "info"}}
+	reload <- &nc
+	dtWait(t, "reload applied", func() bool { return strings.Contains(logs.String(), "configuration reloaded") })
+	line := logs.String()
+	for _, want := range []string{"applied=\"[log.level detect alerts]\"", "needs_restart=\"[mqtt.keep_alive changed]\""} {
+		if !strings.Contains(line, want) {
+			t.Fatalf("reload log lacks %s:\n%s", want, line)
+		}
+	}
+	if level.Level() != slog.LevelDebug {
+		t.Fatalf("log level %v after reload", level.Level())
+	}
+	if code, _ := dtGet(t, base+"/healthz", ""); code != 200 {
+		t.Fatal("daemon unhealthy after reload")
+	}
+	// The same file again: the live changes are in force, the restart-only
+	// one is still pending.
+	reload <- &nc
+	dtWait(t, "second reload", func() bool {
+		return strings.Contains(logs.String(), "msg=\"configuration reloaded\" applied=[] needs_restart=\"[mqtt.keep_alive changed]\"")
+	})
+	back := *cfg
+	back.Detect, back.Alerts, back.Log = nc.Detect, nc.Alerts, nc.Log
+	reload <- &back
+	dtWait(t, "a reload without changes", func() bool { return strings.Contains(logs.String(), "configuration reloaded: no changes") })
+	if err, _ := stop(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// dtTap counts what detection derives.
+type dtTap struct {
+	mu      sync.Mutex
+	columns []detect.Column
+}
+
+func (d *dtTap) Column(c detect.Column, _ detect.Profile) {
+	d.mu.Lock()
+	d.columns = append(d.columns, c)
+	d.mu.Unlock()
+}
+
+func (d *dtTap) Event(detect.Event) {}
+
+func (d *dtTap) n() int {
+	d.mu.Lock()
+	defer d.mu.Unlock()
+	return len(d.columns)
+}
+
+// TestRunFeedsDetection: readings published over MQTT reach detection (the
+// Tap and the status page see the columns) with the site named as configured.
+func TestRunFeedsDetection(t *testing.T) {
+	mq := testenv.StartMosquitto(t, testenv.MosquittoOptions{Extra: testenv.MosquittoUserLine()})
+	tap := &dtTap{}
+	base, _ := dtRun(t, Options{Config: dtConfig(t, mq.URL), Tap: tap})
+	pub := newE2EPublisher(t, mq.URL, "dt-pub")
+	t0 := time.Now().UTC().Add(-24 * time.Hour).Truncate(time.Hour)
+	var msgs []e2eMsg
+	for step := 0; step < 6; step++ {
+		for _, d := range []float64{1, 5, 10} {
+			msgs = append(msgs, e2eMsg{topic: "lakes/FEN WATER/temp", // the site's name, any case: resolved to its id
+				payload: fmt.Appendf(nil, `{"time":"%s","depth_m":%g,"temp_c":%.2f}`, t0.Add(time.Duration(step)*10*time.Minute).Format(time.RFC3339), d, 18-d)})
+		}
+	}
+	pub.publish(t, msgs, 50, 30*time.Second)
+	dtWait(t, "columns", func() bool { return tap.n() >= 4 })
+	tap.mu.Lock()
+	c := tap.columns[0]
+	tap.mu.Unlock()
+	if c.Site != "fen-water" || !c.Time.Equal(t0) {
+		t.Fatalf("first column: site %q at %v, want fen-water at %v", c.Site, c.Time, t0)
+	}
+	if code, body := dtGet(t, base+"/api/sites/fen-water", ""); code != 200 || !strings.Contains(body, "fen-water") {
+		t.Fatalf("status API: %d %.200s", code, body)
 	}
 }

@@ -2,11 +2,11 @@ package demo
 
 import (
 	"context"
-	"errors"
+	"encoding/json"
 	"fmt"
 	"log/slog"
 	"net"
-	"sort"
+	"strings"
 	"sync"
 	"sync/atomic"
 	"time"
@@ -35,21 +35,7 @@ type broker struct {
 	srv  *mqtt.Server
 	addr string
 	subs *subscribeHook
-	acks *ackHook
 }
-
-// ackHook counts the QoS 1 messages the subscriber (the daemon) acknowledged;
-// the daemon acknowledges a message once its readings are durably spooled.
-type ackHook struct {
-	mqtt.HookBase
-	n atomic.Int64
-}
-
-func (h *ackHook) ID() string { return "holomix-demo-acks" }
-
-func (h *ackHook) Provides(b byte) bool { return b == mqtt.OnQosComplete }
-
-func (h *ackHook) OnQosComplete(_ *mqtt.Client, _ packets.Packet) { h.n.Add(1) }
 
 // subscribeHook closes ready when the first subscription to a topic filter
 // arrives (the daemon's), so that nothing is published into the void.
@@ -84,11 +70,6 @@ func startBroker(log *slog.Logger) (*broker, error) {
 		ln.Close()
 		return nil, fmt.Errorf("demo broker: hook: %w", err)
 	}
-	acks := &ackHook{}
-	if err := srv.AddHook(acks, nil); err != nil {
-		ln.Close()
-		return nil, fmt.Errorf("demo broker: hook: %w", err)
-	}
 	if err := srv.AddListener(listeners.NewNet("tcp", ln)); err != nil {
 		ln.Close()
 		return nil, fmt.Errorf("demo broker: listener: %w", err)
@@ -97,7 +78,7 @@ func startBroker(log *slog.Logger) (*broker, error) {
 		srv.Close()
 		return nil, fmt.Errorf("demo broker: serve: %w", err)
 	}
-	return &broker{srv: srv, addr: ln.Addr().String(), subs: subs, acks: acks}, nil
+	return &broker{srv: srv, addr: ln.Addr().String(), subs: subs}, nil
 }
 
 // backlog is the number of QoS 1 messages the broker holds unacknowledged.
@@ -110,46 +91,6 @@ func (b *broker) dropped() int64 {
 
 func (b *broker) close() error { return b.srv.Close() }
 
-// dataClock is the data time the daemon has taken in: the model time of the
-// last message it acknowledged. The status page's freshness follows it, so
-// that a buoy counts as silent when the data say so, whatever the speed.
-type dataClock struct {
-	start time.Time
-	acked func() int64 // messages acknowledged so far
-
-	mu    sync.Mutex
-	marks []mark // data time of messages, one mark where it changes
-}
-
-type mark struct {
-	seq int64 // 1-based number of the first message with this data time
-	t   time.Time
-}
-
-// note records that message number seq carries data time t.
-func (c *dataClock) note(seq int64, t time.Time) {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	if n := len(c.marks); n == 0 || !c.marks[n-1].t.Equal(t) {
-		c.marks = append(c.marks, mark{seq, t})
-	}
-}
-
-// now returns the data time of the last acknowledged message.
-func (c *dataClock) now() time.Time {
-	n := int64(0)
-	if c.acked != nil {
-		n = c.acked()
-	}
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	i := sort.Search(len(c.marks), func(i int) bool { return c.marks[i].seq > n }) - 1
-	if i < 0 {
-		return c.start
-	}
-	return c.marks[i].t
-}
-
 // publisher is the simulated buoys' MQTT connection: a paho client that
 // publishes at QoS 1 to the embedded broker, as a field gateway would.
 type publisher struct {
@@ -157,10 +98,24 @@ type publisher struct {
 	b      *broker
 	window []paho.Token
 	before func() // called before each message (air temperature, progress)
-	clock  *dataClock
-	simNow func() time.Time
 
 	messages atomic.Int64
+	readings atomic.Int64
+}
+
+// readingsIn counts the readings of one simulator message: the temperatures
+// of a profile, else one.
+func readingsIn(topic string, payload []byte) int64 {
+	if !strings.HasSuffix(topic, "/profile") {
+		return 1
+	}
+	var p struct {
+		Temps []float64 `json:"temps_c"`
+	}
+	if err := json.Unmarshal(payload, &p); err != nil {
+		return 0
+	}
+	return int64(len(p.Temps))
 }
 
 func newPublisher(ctx context.Context, b *broker) (*publisher, error) {
@@ -198,10 +153,8 @@ func (p *publisher) Publish(ctx context.Context, topic string, payload []byte) e
 		}
 		p.window = p.window[1:]
 	}
-	seq := p.messages.Add(1)
-	if p.clock != nil && p.simNow != nil {
-		p.clock.note(seq, p.simNow())
-	}
+	p.messages.Add(1)
+	p.readings.Add(readingsIn(topic, payload))
 	p.window = append(p.window, p.cl.Publish(topic, 1, false, payload))
 	return nil
 }
@@ -230,7 +183,3 @@ func waitToken(ctx context.Context, t paho.Token) error {
 		return nil
 	}
 }
-
-// errStopped marks a run that ended on --for or Ctrl-C rather than at the
-// end of the season.
-var errStopped = errors.New("stopped")

@@ -16,11 +16,13 @@ import (
 	"net"
 	"os"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
 
 	"holomix/config"
+	"holomix/detect"
 	"holomix/ingest/sim"
 	"holomix/internal/daemon"
 	"holomix/internal/status"
@@ -198,8 +200,7 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 	// The parts, in the order data flows back to front: webhook receiver,
 	// status store, broker, daemon, simulator.
 	store := status.NewStore(StatusSites(Sites(sc)), 0)
-	// Freshness on the status page follows data time: the model time of the
-	// last message the daemon acknowledged.
+	// Freshness on the status page follows data time as detection sees it.
 	clock := &dataClock{start: start}
 	store.SetClock(clock.now)
 	onAlert := func(a Alert) {
@@ -233,7 +234,6 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 		return nil, err
 	}
 	defer br.close()
-	clock.acked = br.acks.n.Load
 
 	cfg := daemonConfig(sc, o, dir, br.addr, httpLn.Addr().String(), rcv)
 
@@ -251,7 +251,7 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 	} else {
 		fmt.Fprintf(out, "  database  %s bucket %s\n", o.InfluxURL, cfg.Influx.Bucket)
 	}
-	fmt.Fprintf(out, "  alerts    signed webhooks to %s (verified here) and the daemon's log\n", rcv.url)
+	fmt.Fprintf(out, "  alerts    signed webhooks to %s (verified here) and a log receiver (--log-level info shows it)\n", rcv.url)
 	fmt.Fprintf(out, "status page: %s\n", statusURL)
 
 	// The daemon.
@@ -263,12 +263,14 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 		Status:     store,
 		StatusPage: status.Options{Title: "holomix demo — simulated lakes", Refresh: 5 * time.Second, StaleAfter: staleAfter},
 		Air:        air,
+		Tap:        clock,
 		OnReady:    func(daemon.Info) { close(ready) },
 	})
 	defer d.stop()
 	select {
 	case <-ready:
 	case <-d.done:
+		httpLn.Close()
 		return nil, fmt.Errorf("demo: the daemon did not start: %w", d.err)
 	case <-ctx.Done():
 		rep.Interrupted = true
@@ -310,7 +312,6 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 		}
 	}()
 	pub.before = feeder(simCtx, s, sc, air, out, start, end, wallStart)
-	pub.clock, pub.simNow = clock, s.Now
 	fmt.Fprintf(out, "alerts as the webhook receiver gets them (data time UTC, site, kind, status, summary):\n")
 	simErr := s.Run(simCtx, pub, o.Format, rep.Speed, end)
 	switch {
@@ -348,10 +349,7 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 	// What happened.
 	rep.Reached = s.Now()
 	rep.Truth = s.Truth()
-	rep.Messages = pub.messages.Load()
-	for _, st := range rep.Truth.Sites {
-		rep.Readings += int64(st.Readings)
-	}
+	rep.Messages, rep.Readings = pub.messages.Load(), pub.readings.Load()
 	m := gather(reg)
 	rep.Received, rep.Spooled, rep.Stored, rep.Detected, rep.Dead = m.received, m.spooled, m.stored, m.detected, m.dead
 	rep.AlertsDelivered, rep.AlertsFailed, rep.AlertsPending = m.delivered, m.failed, m.pending
@@ -361,6 +359,34 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 	rep.Alerts, rep.Rejected, rep.Repeats = rcv.received()
 	writeSummary(out, rep)
 	return rep, nil
+}
+
+// dataClock follows data time as detection sees it: the latest profile
+// time the daemon has detected at any site (an engine.Sink on the daemon's
+// Tap). On the status page a site is then fresh or stale by the data, not by
+// how fast the demo runs.
+type dataClock struct {
+	start  time.Time
+	latest atomic.Int64 // Unix ns
+}
+
+func (c *dataClock) Column(col detect.Column, _ detect.Profile) {
+	t := col.Time.UnixNano()
+	for {
+		old := c.latest.Load()
+		if t <= old || c.latest.CompareAndSwap(old, t) {
+			return
+		}
+	}
+}
+
+func (c *dataClock) Event(detect.Event) {}
+
+func (c *dataClock) now() time.Time {
+	if n := c.latest.Load(); n != 0 {
+		return time.Unix(0, n).UTC()
+	}
+	return c.start
 }
 
 // runningDaemon is daemon.Run on its own goroutine.

@@ -191,8 +191,12 @@ func writeSummary(w io.Writer, r *Report) {
 	}
 	fmt.Fprintf(w, "  the simulator's truth next to what holomix detected (detected: the event's estimated onset):\n")
 	fmt.Fprintf(w, "    %-10s  %-20s  %-16s  %-16s  %10s  %s\n", "site", "", "truth", "detected", "difference", "alert")
+	rows := 0
 	for _, st := range r.Truth.Sites {
-		truthRows(w, r, st)
+		rows += truthRows(w, r, st)
+	}
+	if rows == 0 {
+		fmt.Fprintf(w, "    (nothing to compare yet: no lake reached Tmd or froze before the demo stopped)\n")
 	}
 	fmt.Fprintf(w, "  (truth: the model's full column; an ice cover counts from 3 days. Ice is inferred from water temperatures\n")
 	fmt.Fprintf(w, "   only: its thickness is unknown and no ice is safe because an alert says so; follow local guidance.)\n")
@@ -200,7 +204,7 @@ func writeSummary(w io.Writer, r *Report) {
 
 // truthRows prints the truth-versus-detection lines of one site: the fall
 // passage through Tmd and every ice cover of at least minIceRow.
-func truthRows(w io.Writer, r *Report, st sim.SiteTruth) {
+func truthRows(w io.Writer, r *Report, st sim.SiteTruth) (printed int) {
 	evs := r.Events[st.Site]
 	freeze := r.Reached
 	brief := 0
@@ -267,10 +271,12 @@ func truthRows(w io.Writer, r *Report, st sim.SiteTruth) {
 			continue
 		}
 		fmt.Fprintf(w, "    %-10s  %-20s  %-16s  %-16s  %10s  %s\n", st.Site, rw.what, ts, ds, diff, al)
+		printed++
 	}
 	if brief > 0 {
 		fmt.Fprintf(w, "    %-10s  (+%d skim-ice spells shorter than 3 days)\n", st.Site, brief)
 	}
+	return printed
 }
 
 // Matching of events to the truth in the summary.

@@ -28,12 +28,20 @@ import (
 // FreePort returns a TCP port on 127.0.0.1 that was free a moment ago.
 func FreePort(t testing.TB) int {
 	t.Helper()
+	p, err := freePort()
+	if err != nil {
+		t.Fatalf("testenv: %v", err)
+	}
+	return p
+}
+
+func freePort() (int, error) {
 	l, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
-		t.Fatalf("testenv: find a free port: %v", err)
+		return 0, fmt.Errorf("find a free port: %w", err)
 	}
 	defer l.Close()
-	return l.Addr().(*net.TCPAddr).Port
+	return l.Addr().(*net.TCPAddr).Port, nil
 }
 
 // RepoRoot walks up from the working directory to the directory holding go.mod.
@@ -107,6 +115,15 @@ func (p *process) stop(sig syscall.Signal) {
 // Kill ends the process with SIGKILL at once (a crash, for fault tests).
 func (p *process) kill() { p.stop(syscall.SIGKILL) }
 
+func (p *process) pid() int {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	if p.cmd == nil || p.cmd.Process == nil {
+		return 0
+	}
+	return p.cmd.Process.Pid
+}
+
 func (p *process) tail() string {
 	b, _ := os.ReadFile(p.log)
 	if len(b) > 2000 {
@@ -115,21 +132,19 @@ func (p *process) tail() string {
 	return string(b)
 }
 
-func findBinary(t testing.TB, name, envVar string, candidates []string, install string) string {
-	t.Helper()
+func findBinary(name, envVar string, candidates []string, install string) (string, error) {
 	if v := os.Getenv(envVar); v != "" {
-		return v
+		return v, nil
 	}
 	for _, c := range candidates {
 		if st, err := os.Stat(c); err == nil && !st.IsDir() {
-			return c
+			return c, nil
 		}
 	}
 	if p, err := exec.LookPath(name); err == nil {
-		return p
+		return p, nil
 	}
-	t.Fatalf("testenv: %s not found (set %s or install it: %s)", name, envVar, install)
-	return ""
+	return "", fmt.Errorf("%s not found (set %s or install it: %s)", name, envVar, install)
 }
 
 func waitTCP(addr string, d time.Duration) error {
@@ -180,10 +195,36 @@ type Mosquitto struct {
 // StartMosquitto starts a broker with persistence on and returns when it accepts connections.
 func StartMosquitto(t testing.TB, o MosquittoOptions) *Mosquitto {
 	t.Helper()
-	bin := findBinary(t, "mosquitto", "HOLOMIX_MOSQUITTO", []string{"/usr/sbin/mosquitto"},
+	m, err := newMosquitto(t.TempDir(), o)
+	if err != nil {
+		t.Fatalf("testenv: %v", err)
+	}
+	t.Cleanup(m.Stop)
+	return m
+}
+
+// StartMosquittoDir is StartMosquitto outside a test (benchmark and fault
+// drivers): configuration, persistence and log live in dir, which must exist.
+// The returned cleanup stops the broker.
+func StartMosquittoDir(dir string, o MosquittoOptions) (*Mosquitto, func(), error) {
+	m, err := newMosquitto(dir, o)
+	if err != nil {
+		return nil, nil, fmt.Errorf("testenv: %w", err)
+	}
+	return m, m.Stop, nil
+}
+
+func newMosquitto(dir string, o MosquittoOptions) (*Mosquitto, error) {
+	bin, err := findBinary("mosquitto", "HOLOMIX_MOSQUITTO", []string{"/usr/sbin/mosquitto"},
 		"apt-get update && apt-get install -y mosquitto")
-	dir := t.TempDir()
-	m := &Mosquitto{Port: FreePort(t), Dir: dir}
+	if err != nil {
+		return nil, err
+	}
+	port, err := freePort()
+	if err != nil {
+		return nil, err
+	}
+	m := &Mosquitto{Port: port, Dir: dir}
 	m.URL = fmt.Sprintf("tcp://127.0.0.1:%d", m.Port)
 	var conf strings.Builder
 	fmt.Fprintf(&conf, "per_listener_settings false\npersistence true\npersistence_location %s/\nautosave_interval 1\n", dir)
@@ -203,7 +244,9 @@ func StartMosquitto(t testing.TB, o MosquittoOptions) *Mosquitto {
 	}
 	fmt.Fprintf(&conf, "listener %d 127.0.0.1\n", m.Port)
 	if o.TLS != nil {
-		m.TLSPort = FreePort(t)
+		if m.TLSPort, err = freePort(); err != nil {
+			return nil, err
+		}
 		m.TLSURL = fmt.Sprintf("ssl://127.0.0.1:%d", m.TLSPort)
 		fmt.Fprintf(&conf, "listener %d 127.0.0.1\ncafile %s\ncertfile %s\nkeyfile %s\n", m.TLSPort, o.TLS.CAFile, o.TLS.CertFile, o.TLS.KeyFile)
 		if o.TLS.RequireClientCert {
@@ -218,24 +261,37 @@ func StartMosquitto(t testing.TB, o MosquittoOptions) *Mosquitto {
 	conf.WriteString(o.Extra)
 	cfgPath := filepath.Join(dir, "mosquitto.conf")
 	if err := os.WriteFile(cfgPath, []byte(conf.String()), 0o644); err != nil {
-		t.Fatalf("testenv: write mosquitto.conf: %v", err)
+		return nil, fmt.Errorf("write mosquitto.conf: %w", err)
 	}
 	m.p = &process{name: "mosquitto", bin: bin, args: []string{"-c", cfgPath}, log: filepath.Join(dir, "mosquitto.log")}
-	m.Start(t)
-	t.Cleanup(m.Stop)
-	return m
+	if err := m.Restart(); err != nil {
+		return nil, err
+	}
+	return m, nil
 }
 
 // Start (re)starts the broker on the same port with the same persistence directory.
 func (m *Mosquitto) Start(t testing.TB) {
 	t.Helper()
-	if err := m.p.start(); err != nil {
+	if err := m.Restart(); err != nil {
 		t.Fatalf("testenv: %v", err)
 	}
-	if err := waitTCP(fmt.Sprintf("127.0.0.1:%d", m.Port), 15*time.Second); err != nil {
-		t.Fatalf("testenv: mosquitto: %v\n%s", err, m.p.tail())
-	}
 }
+
+// Restart is Start outside a test: it (re)starts the broker and waits until
+// it accepts connections.
+func (m *Mosquitto) Restart() error {
+	if err := m.p.start(); err != nil {
+		return err
+	}
+	if err := waitTCP(fmt.Sprintf("127.0.0.1:%d", m.Port), 15*time.Second); err != nil {
+		return fmt.Errorf("mosquitto: %w\n%s", err, m.p.tail())
+	}
+	return nil
+}
+
+// PID returns the broker's process id (0 when it is not running).
+func (m *Mosquitto) PID() int { return m.p.pid() }
 
 // Stop stops the broker gracefully (it saves its persistence file).
 func (m *Mosquitto) Stop() { m.p.stop(syscall.SIGTERM) }
@@ -270,28 +326,72 @@ type Influx struct {
 // InfluxdPath returns the influxd binary deploy/test.sh builds into .cache/bin, or one on PATH.
 func InfluxdPath(t testing.TB) string {
 	t.Helper()
+	p, err := influxdPath()
+	if err != nil {
+		t.Fatalf("testenv: %v", err)
+	}
+	return p
+}
+
+func influxdPath() (string, error) {
 	var cands []string
 	if root, err := RepoRoot(); err == nil {
 		cands = append(cands, filepath.Join(root, ".cache", "bin", "influxd"))
 	}
-	return findBinary(t, "influxd", "HOLOMIX_INFLUXD", cands,
+	return findBinary("influxd", "HOLOMIX_INFLUXD", cands,
 		"GOBIN=$PWD/.cache/bin go install github.com/influxdata/influxdb/cmd/influxd@v1.8.10 (deploy/test.sh does this)")
 }
 
 // StartInflux starts InfluxDB 1.8 and returns once /ping answers and the database exists.
 func StartInflux(t testing.TB, o InfluxOptions) *Influx {
 	t.Helper()
-	bin := InfluxdPath(t)
+	in, err := newInflux(t.TempDir(), o)
+	if in != nil {
+		t.Cleanup(in.Stop)
+	}
+	if err != nil {
+		t.Fatalf("testenv: %v", err)
+	}
+	return in
+}
+
+// StartInfluxDir is StartInflux outside a test (benchmark and fault
+// drivers): configuration, data and log live in dir, which must exist. The
+// returned cleanup stops the server.
+func StartInfluxDir(dir string, o InfluxOptions) (*Influx, func(), error) {
+	in, err := newInflux(dir, o)
+	if err != nil {
+		if in != nil {
+			in.Stop()
+		}
+		return nil, nil, fmt.Errorf("testenv: %w", err)
+	}
+	return in, in.Stop, nil
+}
+
+// newInflux starts the server; on an error after the process started it
+// returns the Influx too, so that the caller can stop it.
+func newInflux(dir string, o InfluxOptions) (*Influx, error) {
+	bin, err := influxdPath()
+	if err != nil {
+		return nil, err
+	}
 	if o.Database == "" {
 		o.Database = "lake"
 	}
-	dir := t.TempDir()
-	in := &Influx{Port: FreePort(t), Dir: dir, Database: o.Database, Bucket: o.Database + "/autogen", Token: ":", opts: o}
+	port, err := freePort()
+	if err != nil {
+		return nil, err
+	}
+	in := &Influx{Port: port, Dir: dir, Database: o.Database, Bucket: o.Database + "/autogen", Token: ":", opts: o}
 	in.URL = fmt.Sprintf("http://127.0.0.1:%d", in.Port)
 	if o.Auth {
 		in.Token = o.Username + ":" + o.Password
 	}
-	rpc := FreePort(t)
+	rpc, err := freePort()
+	if err != nil {
+		return nil, err
+	}
 	conf := fmt.Sprintf(`reporting-disabled = true
 bind-address = "127.0.0.1:%d"
 [meta]
@@ -315,28 +415,45 @@ bind-address = "127.0.0.1:%d"
 `, rpc, dir, dir, dir, in.Port, o.Auth)
 	cfgPath := filepath.Join(dir, "influxdb.conf")
 	if err := os.WriteFile(cfgPath, []byte(conf), 0o644); err != nil {
-		t.Fatalf("testenv: write influxdb.conf: %v", err)
+		return nil, fmt.Errorf("write influxdb.conf: %w", err)
 	}
 	in.p = &process{name: "influxd", bin: bin, args: []string{"run", "-config", cfgPath}, log: filepath.Join(dir, "influxd.log")}
-	in.Start(t)
-	t.Cleanup(in.Stop)
+	if err := in.Restart(); err != nil {
+		return in, err
+	}
 	if o.Auth {
 		// The first user may be created without credentials while none exists.
 		if err := in.query("", fmt.Sprintf("CREATE USER %q WITH PASSWORD '%s' WITH ALL PRIVILEGES", o.Username, o.Password)); err != nil {
-			t.Fatalf("testenv: create admin user: %v", err)
+			return in, fmt.Errorf("create admin user: %w", err)
 		}
 	}
-	if err := in.query(in.Token, "CREATE DATABASE "+strconv.Quote(o.Database)); err != nil {
-		t.Fatalf("testenv: create database: %v\n%s", err, in.p.tail())
+	if err := in.CreateDatabase(o.Database); err != nil {
+		return in, fmt.Errorf("%w\n%s", err, in.p.tail())
 	}
-	return in
+	return in, nil
+}
+
+// CreateDatabase creates a database (no error when it exists).
+func (in *Influx) CreateDatabase(name string) error {
+	if err := in.query(in.Token, "CREATE DATABASE "+strconv.Quote(name)); err != nil {
+		return fmt.Errorf("create database: %w", err)
+	}
+	return nil
 }
 
 // Start (re)starts the server on the same port and data directory and waits for /ping.
 func (in *Influx) Start(t testing.TB) {
 	t.Helper()
-	if err := in.p.start(); err != nil {
+	if err := in.Restart(); err != nil {
 		t.Fatalf("testenv: %v", err)
+	}
+}
+
+// Restart is Start outside a test: it (re)starts the server and waits up to
+// 60 s for /ping.
+func (in *Influx) Restart() error {
+	if err := in.p.start(); err != nil {
+		return err
 	}
 	deadline := time.Now().Add(60 * time.Second)
 	for {
@@ -344,15 +461,18 @@ func (in *Influx) Start(t testing.TB) {
 		if err == nil {
 			resp.Body.Close()
 			if resp.StatusCode == http.StatusNoContent {
-				return
+				return nil
 			}
 		}
 		if time.Now().After(deadline) {
-			t.Fatalf("testenv: influxd /ping not ready after 60 s: %v\n%s", err, in.p.tail())
+			return fmt.Errorf("influxd /ping not ready after 60 s: %v\n%s", err, in.p.tail())
 		}
 		time.Sleep(50 * time.Millisecond)
 	}
 }
+
+// PID returns the server's process id (0 when it is not running).
+func (in *Influx) PID() int { return in.p.pid() }
 
 // Stop stops the server gracefully.
 func (in *Influx) Stop() { in.p.stop(syscall.SIGTERM) }
