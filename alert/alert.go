@@ -11,6 +11,23 @@
 // crash between a receiver's 2xx and the mark, the message is sent again with
 // the same webhook-id, which receivers use to de-duplicate.
 //
+// Episodes: every alert belongs to an episode of one (site, kind, subject).
+// Conditions (intake_change, intake_overturn_risk, frazil_risk, sensor_fault)
+// open an episode on firing and close it on resolved; firings in between are
+// not re-sent, updates go out at most once per event day, and reminders
+// repeat while the episode is open. Transitions (stratification_onset,
+// overturn, max_density_reached, inverse_stratification, ice_off,
+// degree_days) are one-shot: every firing is delivered as its own episode,
+// closed at once, without reminders, so each season's overturn and each
+// degree-day threshold is announced. ice_on is a condition that ends with a
+// resolved ice_on (sent by detect when the data stop during ice cover: the
+// message then says the cover can no longer be followed, not that it ended)
+// or with an ice_off at the same site; the ice_off message is what its
+// receivers get, and only receivers that asked for resolved messages but do
+// not receive ice_off get a resolved ice_on instead. The next winter's ice_on
+// is a new episode. Re-submitting an event is always a no-op (deterministic
+// alert ids). See episode.go for the full rule.
+//
 // Secrets: a receiver secret "whsec_<base64>" is base64-decoded to the HMAC
 // key (the Standard Webhooks form); any other string is used as raw key bytes.
 // Verify with the same key: standardwebhooks.NewWebhook("whsec_…") for the
@@ -194,6 +211,12 @@ func Open(o Options) (*Dispatcher, error) {
 	if err := db.Update(initBuckets); err != nil {
 		db.Close()
 		return nil, fmt.Errorf("alert: init %s: %w", path, err)
+	}
+	if n, err := d.closeStaleOneShot(d.now().UTC()); err != nil {
+		db.Close()
+		return nil, fmt.Errorf("alert: close stale transition episodes in %s: %w", path, err)
+	} else if n > 0 {
+		d.log.Info("closed transition episodes left open by an earlier version (each firing of these kinds is now its own episode)", "count", n)
 	}
 	if err := d.load(); err != nil {
 		db.Close()

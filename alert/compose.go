@@ -229,6 +229,18 @@ var texts = map[string]kindText{
 	},
 }
 
+// resolvedVariant is the wording of a resolved message whose Details["reason"]
+// says the condition was not seen to end, keyed by kind "/" reason (a
+// constant lookup table). detect resolves ice_on with reason "data gap" when
+// the data stop during ice cover: the message must not say the ice has gone.
+var resolvedVariant = map[string]struct{ resolved, afterNote string }{
+	string(detect.KindIceOn) + "/data gap": {
+		resolved: "The likely ice cover at {where} can no longer be followed because the data stopped; this does not mean that the ice has gone (noted {when}, inferred from water temperatures, not observed).",
+		afterNote: "No water temperatures arrived for longer than the detector bridges, so it no longer follows this ice cover and this episode is closed. " +
+			"Ice may still be there: confirm by looking, and check the buoy and its data link. If the new data show ice cover again, a new ice-on message follows.",
+	},
+}
+
 // Compose writes the message for an event at a site. It is deterministic: the
 // same event and site give the same text (golden-file tested). The event's
 // Status selects the wording: firing, resolved, update or reminder.
@@ -273,12 +285,16 @@ func compose(ev detect.Event, site SiteInfo, onset time.Time) Message {
 	}
 	switch ev.Status {
 	case detect.StatusResolved:
-		first := rep.Replace(kt.resolved)
-		if !strings.HasPrefix(kt.resolved, "{where}") { // a site name keeps its capital
+		resolved, afterNote := kt.resolved, kt.afterNote
+		if v, ok := resolvedVariant[string(ev.Kind)+"/"+ev.Details["reason"]]; ok {
+			resolved, afterNote = v.resolved, v.afterNote
+		}
+		first := rep.Replace(resolved)
+		if !strings.HasPrefix(resolved, "{where}") { // a site name keeps its capital
 			first = strings.ToLower(first[:1]) + first[1:]
 		}
 		m.Summary = "Resolved: " + first
-		paras = append(paras, rep.Replace(kt.afterNote))
+		paras = append(paras, rep.Replace(afterNote))
 		m.Cautions = kt.resolvedC
 	case detect.StatusUpdate:
 		m.Summary = fmt.Sprintf("Update, %s: %s continues%s; new figures as of %s.", where, kt.condition, since, when)
@@ -467,6 +483,8 @@ var metricGloss = map[string]string{
 	"depth_m":               "depth",
 	"silent_h":              "time without usable readings",
 	"gap_h":                 "time without usable readings",
+	"gap_days":              "time without data",
+	"max_gap_days":          "longest silence the detector bridges",
 	"atu":                   "accumulated thermal units (ATU)",
 	"degree_days":           "accumulated thermal units (ATU)",
 	"threshold_c_day":       "threshold",

@@ -67,6 +67,15 @@ func goldenCases() map[string][]goldenCase {
 	iceOn := detect.Event{Time: utc(2025, 12, 14, 6, 0), Site: "vell", Kind: detect.KindIceOn, Severity: "warning", Confidence: "medium",
 		Metrics: []detect.Metric{{Name: "surface_temp_c", Value: 0.1, Unit: "C"}, {Name: "bottom_temp_c", Value: 3.7, Unit: "C"}},
 		Details: map[string]string{"method": "lasting inverse stratification with the top sensor near 0 °C"}}
+	// A resolved ice_on as detect sends it when the data stop during ice
+	// cover (detect/site.go dataGap): Details["reason"] is "data gap".
+	iceGap := detect.Event{Time: utc(2026, 2, 20, 9, 0), Site: "vell", Kind: detect.KindIceOn, Severity: "info", Subject: "ice cover",
+		From: "ice", To: "unknown", Confidence: "medium; no data for 12.1 d",
+		Summary: "Tarn Vell: ice cover inferred since about 2025-12-14 06:00 UTC can no longer be followed: no data from 2026-02-08 06:00 UTC to 2026-02-20 09:00 UTC (12.1 d).",
+		Metrics: []detect.Metric{{Name: "surface_temp_c", Value: 0.2, Unit: "C"}, {Name: "bottom_temp_c", Value: 3.6, Unit: "C"},
+			{Name: "gap_days", Value: 12.125, Unit: "d"}, {Name: "max_gap_days", Value: 7, Unit: "d"}},
+		Details: map[string]string{"reason": "data gap", "onset": "2025-12-14T06:00:00Z", "last_data": "2026-02-08T06:00:00Z",
+			"data_resumed": "2026-02-20T09:00:00Z"}}
 	iceOff := detect.Event{Time: utc(2026, 4, 19, 12, 0), Site: "vell", Kind: detect.KindIceOff, Severity: "info", Confidence: "medium",
 		Metrics: []detect.Metric{{Name: "surface_temp_c", Value: 2.6, Unit: "C"}, {Name: "bottom_temp_c", Value: 3.8, Unit: "C"}}}
 	change := detect.Event{Time: utc(2025, 8, 14, 3, 10), Site: "orrin", Kind: detect.KindIntakeChange, Subject: "hatchery deep",
@@ -107,7 +116,8 @@ func goldenCases() map[string][]goldenCase {
 			goldenCase{title: "update", ev: maxdUpd, site: orrin, onset: maxd.Time, status: detect.StatusUpdate}),
 		"inverse_stratification": pair(inv, vell, utc(2026, 4, 19, 12, 0)),
 		"ice_on": append(pair(iceOn, vell, utc(2026, 4, 19, 12, 0)),
-			goldenCase{title: "reminder", ev: iceOn, site: vell, onset: iceOn.Time, status: StatusReminder}),
+			goldenCase{title: "reminder", ev: iceOn, site: vell, onset: iceOn.Time, status: StatusReminder},
+			goldenCase{title: "resolved, data gap", ev: iceGap, site: vell, status: detect.StatusResolved}),
 		"ice_off":              pair(iceOff, vell, utc(2026, 4, 26, 12, 0)),
 		"intake_change":        pair(change, orrin, utc(2025, 8, 14, 9, 0)),
 		"intake_overturn_risk": pair(risk, orrinLocal, utc(2025, 11, 12, 23, 30)),
@@ -231,5 +241,40 @@ func TestFormatHelpers(t *testing.T) {
 	}
 	if got := formatTime(utc(2025, 10, 30, 23, 30), cet); got != "31 Oct 2025 00:30 CET (30 Oct 2025 23:30 UTC)" {
 		t.Errorf("formatTime across midnight = %q", got)
+	}
+}
+
+// A data gap during ice cover is not the end of the ice: the resolved message
+// must say the cover can no longer be followed, never that it has ended
+// (detect/site.go dataGap; ice caution per SCIENCE.md §7).
+func TestComposeIceDataGap(t *testing.T) {
+	var gap, ended detect.Event
+	for _, c := range goldenCases()["ice_on"] {
+		switch c.title {
+		case "resolved, data gap":
+			gap = c.ev
+		case "resolved":
+			ended = c.ev
+		}
+	}
+	gap.Status, ended.Status = detect.StatusResolved, detect.StatusResolved
+	m := Compose(gap, vell)
+	if want := "Resolved: the likely ice cover at Tarn Vell (ice cover) can no longer be followed because the data stopped"; !strings.HasPrefix(m.Summary, want) {
+		t.Errorf("data-gap summary = %q, want prefix %q", m.Summary, want)
+	}
+	text := m.Text()
+	for _, bad := range []string{"has ended", "has gone since", "have gone since"} {
+		if strings.Contains(text, bad) {
+			t.Errorf("data-gap text says %q:\n%s", bad, text)
+		}
+	}
+	for _, want := range []string{"does not mean that the ice has gone", "no ice is guaranteed safe", "reason: data gap"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("data-gap text lacks %q:\n%s", want, text)
+		}
+	}
+	// Without the reason the ordinary wording stays.
+	if s := Compose(ended, vell).Summary; !strings.HasPrefix(s, "Resolved: the likely ice cover at Tarn Vell has ended since") {
+		t.Errorf("ordinary resolved summary = %q", s)
 	}
 }

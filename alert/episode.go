@@ -1,6 +1,7 @@
 package alert
 
 import (
+	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -18,16 +19,73 @@ import (
 
 // Episodes and de-duplication.
 //
-// A firing event opens an episode keyed by (site, kind, subject, onset); its
-// message goes out once. While the episode is open, further firings for the
-// same (site, kind, subject) are not notified (flicker guard). A resolved
-// event closes the open episode and notifies the receivers that got the firing
-// and asked for resolved messages. An update event replaces the episode's
-// latest figures; it is sent only when its event-time UTC day differs from the
-// day of the episode's last firing or update message, so at most one message
-// per event day. Reminders repeat the latest figures every Receiver.Reminder of
-// wall-clock time while the episode is open. Alert ids are deterministic (see
-// AlertID), so a re-fed event is recognised and ignored.
+// Every alert belongs to an episode keyed by (site, kind, subject, onset).
+// Alert ids are deterministic (see AlertID), so a re-fed event is recognised
+// and ignored whatever the kind. How an episode ends depends on the kind:
+// lifecycleOf classifies the kinds and endIceCover is how an ice_off ends an
+// ice cover; nothing else decides it.
+//
+//   - Condition kinds (intake_change, intake_overturn_risk, frazil_risk,
+//     sensor_fault, and any kind this package does not know): a firing event
+//     opens an episode and its message goes out once. While the episode is
+//     open, further firings for the same (site, kind, subject) are not
+//     notified (flicker guard). A resolved event closes the open episode and
+//     notifies the receivers that got the firing and asked for resolved
+//     messages. An update event replaces the episode's latest figures; it is
+//     sent only when its event-time UTC day differs from the day of the
+//     episode's last firing or update message, so at most one message per
+//     event day. Reminders repeat the latest figures every Receiver.Reminder
+//     of wall-clock time while the episode is open.
+//   - Transition kinds (stratification_onset, overturn, max_density_reached,
+//     inverse_stratification, ice_off, degree_days) mark a moment, not a state
+//     that later ends: detect never resolves them and already debounces them.
+//     Each firing is its own episode, closed at once: every firing is
+//     delivered (the spring overturn after a fall overturn, the next year's
+//     overturn), never reminded, and updates or resolved events for these
+//     kinds are not sent (counted as suppressed or orphan).
+//   - ice_on is a condition kind (flicker guard, reminders such as a weekly
+//     "ice cover continues") whose episode also ends when an ice_off fires at
+//     the same site (any subject), with the ice_off's data time not before the
+//     ice_on's onset. The ice_off message is what receivers of ice_off get; no
+//     second message tells them the same thing. A receiver that got the ice_on
+//     and asked for resolved messages but does not receive ice_off (its kinds
+//     filter lists ice_on only) gets a resolved ice_on built from the ice_off
+//     event instead: otherwise the end of the cover it was told about, and the
+//     end of its reminders, would reach it by silence. detect also resolves
+//     ice_on itself when the data stop during ice cover (Details["reason"] =
+//     "data gap"); that message says the cover can no longer be followed, not
+//     that it has ended (see Compose). Either way the next winter's ice_on
+//     opens a new episode.
+//
+// Outboxes written before this rule may hold transition episodes that were
+// left open; Open closes them silently (closeStaleOneShot).
+
+// lifecycle says how the episodes of one event kind end.
+type lifecycle int
+
+const (
+	// lcCondition: opened by a firing, closed by a resolved event.
+	lcCondition lifecycle = iota
+	// lcOneShot: each firing is its own episode, closed at once.
+	lcOneShot
+	// lcIceCover: a condition that an ice_off firing at the same site also
+	// closes (endIceCover).
+	lcIceCover
+)
+
+// lifecycleOf is the one place that says how the episodes of a kind end (see
+// the rule above). Unknown kinds are conditions, as before this rule existed.
+func lifecycleOf(k detect.Kind) lifecycle {
+	switch k {
+	case detect.KindStratificationOnset, detect.KindOverturn, detect.KindMaxDensityReached,
+		detect.KindInverseStratification, detect.KindIceOff, detect.KindDegreeDays:
+		return lcOneShot
+	case detect.KindIceOn:
+		return lcIceCover
+	default:
+		return lcCondition
+	}
+}
 
 // normalise validates an event. Missing identity fields and unknown statuses
 // are rejected; an unknown severity is delivered as "warning" (never dropped)
@@ -85,6 +143,9 @@ func (d *Dispatcher) apply(tx *bolt.Tx, ev detect.Event, now time.Time) ([]*item
 		aid := AlertID(epID, detect.StatusFiring, "")
 		if alertSeq(tx, aid) != nil {
 			return nil, "duplicate", nil
+		}
+		if lifecycleOf(ev.Kind) == lcOneShot {
+			return d.fireOneShot(tx, ev, sk, sub, epID, aid, now)
 		}
 		if sub.open != 0 {
 			ep, err := getEpisode(tx, sub.open)
@@ -201,6 +262,161 @@ func (d *Dispatcher) apply(tx *bolt.Tx, ev detect.Event, now time.Time) ([]*item
 		items, err := d.newAlert(tx, ev, ep, detect.StatusUpdate, aid, names, now, ep.Onset)
 		return items, "new", err
 	}
+}
+
+// fireOneShot records a firing of a transition kind as its own episode,
+// closed at once, and delivers it to the receivers that route it. An ice_off
+// also ends the open ice_on episodes of its site (endIceCover).
+func (d *Dispatcher) fireOneShot(tx *bolt.Tx, ev detect.Event, sk []byte, sub subjectRecord, epID, aid string,
+	now time.Time) ([]*item, string, error) {
+	if sub.open != 0 {
+		// Only an outbox written before the one-shot rule can hold an open
+		// episode of a transition kind; Open closes those, so this is a
+		// safety net that must not hold back the new firing.
+		if err := closeStale(tx, sk, sub, now); err != nil {
+			return nil, "", err
+		}
+	}
+	seq, err := tx.Bucket(bktEpisodes).NextSequence()
+	if err != nil {
+		return nil, "", err
+	}
+	names := d.route(ev)
+	ep := &episodeRecord{ID: epID, Seq: seq, Site: ev.Site, Kind: ev.Kind, Subject: ev.Subject, Onset: ev.Time, Open: false,
+		End: ev.Time, LastMsgDay: eventDay(ev.Time), Latest: ev, Receivers: names, Opened: now, Closed: now}
+	if err := putEpisode(tx, ep); err != nil {
+		return nil, "", err
+	}
+	if err := putSubject(tx, sk, subjectRecord{open: 0, last: seq}); err != nil {
+		return nil, "", err
+	}
+	items, err := d.newAlert(tx, ev, ep, detect.StatusFiring, aid, names, now, time.Time{})
+	if err != nil {
+		return nil, "", err
+	}
+	if ev.Kind == detect.KindIceOff {
+		more, err := d.endIceCover(tx, ev, aid, names, now)
+		if err != nil {
+			return nil, "", err
+		}
+		items = append(items, more...)
+	}
+	return items, "new", nil
+}
+
+// endIceCover closes the open ice_on episodes of the ice_off event's site
+// whose onset is not after the ice_off (offID: the ice_off alert, offNames:
+// its receivers). It writes each episode's resolved alert, built from the
+// ice_off figures, so that a later resolved ice_on (data gap) or a re-fed one
+// is recognised as a duplicate; that alert goes only to receivers that got
+// the ice_on, want resolved messages and do not receive the ice_off.
+func (d *Dispatcher) endIceCover(tx *bolt.Tx, off detect.Event, offID string, offNames []string, now time.Time) ([]*item, error) {
+	prefix := []byte(string(detect.KindIceOn) + "\x00")
+	suffix := []byte("\x00" + off.Site)
+	var keys [][]byte
+	for _, k := range prefixKeys(tx.Bucket(bktSubjects), prefix) {
+		// kind NUL subject NUL site: the site is what follows the last NUL.
+		if i := bytes.LastIndexByte(k, 0); i >= 0 && bytes.Equal(k[i:], suffix) {
+			keys = append(keys, k)
+		}
+	}
+	var items []*item
+	for _, sk := range keys {
+		sub := getSubject(tx, sk)
+		if sub.open == 0 {
+			continue
+		}
+		ep, err := getEpisode(tx, sub.open)
+		if err != nil {
+			return nil, err
+		}
+		if off.Time.Before(ep.Onset) {
+			d.log.Warn("ice_off older than the open ice cover: the cover stays open", "site", off.Site,
+				"ice_off_time", off.Time, "episode", ep.ID, "onset", ep.Onset)
+			continue
+		}
+		res := off
+		res.Kind, res.Subject, res.Status = detect.KindIceOn, ep.Subject, detect.StatusResolved
+		res.Details = maps.Clone(off.Details)
+		if res.Details == nil {
+			res.Details = map[string]string{}
+		}
+		res.Details["closed_by"] = "ice_off " + offID
+		ep.Open, ep.End, ep.Closed, ep.Latest = false, off.Time, now, res
+		if err := putEpisode(tx, ep); err != nil {
+			return nil, err
+		}
+		if err := putSubject(tx, sk, subjectRecord{open: 0, last: ep.Seq}); err != nil {
+			return nil, err
+		}
+		var names []string
+		for _, n := range ep.Receivers {
+			if r := d.byName[n]; r != nil && r.resolved && !slices.Contains(offNames, n) {
+				names = append(names, n)
+			}
+		}
+		d.log.Debug("ice_off ends the open ice cover", "site", off.Site, "episode", ep.ID, "resolved_to", names)
+		its, err := d.newAlert(tx, res, ep, detect.StatusResolved, AlertID(ep.ID, detect.StatusResolved, ""), names, now, time.Time{})
+		if err != nil {
+			return nil, err
+		}
+		items = append(items, its...)
+	}
+	return items, nil
+}
+
+// closeStale closes the open episode of sk without a message (a transition
+// episode left open by an earlier version of this package).
+func closeStale(tx *bolt.Tx, sk []byte, sub subjectRecord, now time.Time) error {
+	ep, err := getEpisode(tx, sub.open)
+	if err != nil {
+		return err
+	}
+	ep.Open, ep.End, ep.Closed, ep.Reminders = false, ep.Latest.Time, now, nil
+	if err := putEpisode(tx, ep); err != nil {
+		return err
+	}
+	return putSubject(tx, sk, subjectRecord{open: 0, last: sub.last})
+}
+
+// closeStaleOneShot closes, without messages, the open episodes of transition
+// kinds that an outbox written before the one-shot rule may hold (they would
+// otherwise suppress later firings and send reminders). It returns how many
+// it closed; an outbox without any costs no write transaction.
+func (d *Dispatcher) closeStaleOneShot(now time.Time) (int, error) {
+	stale := func(tx *bolt.Tx) ([][]byte, error) {
+		var keys [][]byte
+		err := tx.Bucket(bktSubjects).ForEach(func(k, _ []byte) error {
+			kind, _, _ := bytes.Cut(k, []byte{0})
+			if lifecycleOf(detect.Kind(kind)) == lcOneShot && getSubject(tx, k).open != 0 {
+				keys = append(keys, append([]byte(nil), k...))
+			}
+			return nil
+		})
+		return keys, err
+	}
+	var keys [][]byte
+	if err := d.db.View(func(tx *bolt.Tx) (err error) { keys, err = stale(tx); return err }); err != nil || len(keys) == 0 {
+		return 0, err
+	}
+	n := 0
+	err := writeTx(d.db, func(tx *bolt.Tx) error {
+		keys, err := stale(tx)
+		if err != nil {
+			return err
+		}
+		for _, sk := range keys {
+			if err := closeStale(tx, sk, getSubject(tx, sk), now); err != nil {
+				return err
+			}
+		}
+		n = len(keys)
+		return nil
+	})
+	if err != nil {
+		return 0, err
+	}
+	return n, nil
 }
 
 func getEpisode(tx *bolt.Tx, seq uint64) (*episodeRecord, error) {

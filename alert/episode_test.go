@@ -140,7 +140,8 @@ func TestEpisodesDeduplicate(t *testing.T) {
 }
 
 // Projection updates change an open episode's message at most once per day of
-// event time, however fast they arrive in wall-clock time.
+// event time, however fast they arrive in wall-clock time. (frazil_risk: the
+// condition kind detect updates; transition kinds have no open episode.)
 func TestUpdatesAtMostOncePerEventDay(t *testing.T) {
 	all := logReceiver("all")
 	crit := logReceiver("critical-only")
@@ -148,7 +149,7 @@ func TestUpdatesAtMostOncePerEventDay(t *testing.T) {
 	d, reg := testOpen(t, Options{Receivers: []config.Receiver{all, crit}})
 	defer closeD(t, d)
 	run(t, d)
-	fire := event("vell", detect.KindMaxDensityReached, detect.StatusFiring, t0, "warning") // 3 Nov 06:40
+	fire := event("vell", detect.KindFrazilRisk, detect.StatusFiring, t0, "warning") // 3 Nov 06:40
 	upd := func(at time.Time, days float64, sev string) detect.Event {
 		ev := withStatus(withTime(fire, at), detect.StatusUpdate)
 		ev.Severity = sev
@@ -173,10 +174,10 @@ func TestUpdatesAtMostOncePerEventDay(t *testing.T) {
 	}
 	got := waitLogged(t, d, 4)
 	want := []string{
-		"all firing vell max_density_reached ",
-		"all update vell max_density_reached ",
-		"all update vell max_density_reached ",
-		"critical-only update vell max_density_reached ",
+		"all firing vell frazil_risk ",
+		"all update vell frazil_risk ",
+		"all update vell frazil_risk ",
+		"critical-only update vell frazil_risk ",
 	}
 	if !slices.Equal(got, want) {
 		t.Errorf("messages:\n%s\nwant:\n%s", strings.Join(got, "\n"), strings.Join(want, "\n"))

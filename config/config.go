@@ -157,6 +157,8 @@ type Detect struct {
 	SensorFaultAfter   Duration `yaml:"sensor_fault_after"`       // 6h
 	ProjectionWindow   Duration `yaml:"projection_window"`        // 5 days (3-7)
 	MinSurfaceDepth    float64  `yaml:"min_surface_depth_m"`      // 2 m: a sensor must be above this
+	MaxGap             Duration `yaml:"max_gap"`                  // 7 days: longer silences restart the detectors (≥ 2h)
+	MinStratified      Duration `yaml:"min_stratified"`           // 7 days: shorter stratified stretches are transient
 }
 
 // Alerts configures receivers.

@@ -50,6 +50,10 @@ func TestDefaults(t *testing.T) {
 	if d.HoldTime.D() != 6*time.Hour || d.ProfileInterval.D() != 10*time.Minute {
 		t.Errorf("hold %v interval %v", d.HoldTime.D(), d.ProfileInterval.D())
 	}
+	// Design choices of the detectors (detect.DefaultMaxGap, detect.DefaultMinStratified).
+	if d.MaxGap.D() != 7*24*time.Hour || d.MinStratified.D() != 7*24*time.Hour {
+		t.Errorf("max_gap %v min_stratified %v, want 7 days each", d.MaxGap.D(), d.MinStratified.D())
+	}
 	if cfg.MQTT.QoS != 1 || cfg.MQTT.CleanSession || cfg.HTTP.Listen != "127.0.0.1:8750" || cfg.MQTT.Subscriptions[0].Format != "json" {
 		t.Errorf("mqtt/http defaults: %+v %+v", cfg.MQTT, cfg.HTTP)
 	}
@@ -96,6 +100,8 @@ func TestBadConfigs(t *testing.T) {
 		{"public listener without auth", base + "http:\n  listen: 0.0.0.0:8750\n", 8, "not loopback"},
 		{"intake below lake", base + "    intakes:\n      - {name: h, depth_m: 20}\n", 8, "intake depth 20 below max_depth_m 12"},
 		{"bad duration", base + "detect:\n  hold_time: soon\n", 8, `invalid duration "soon"`},
+		{"short max gap", base + "detect:\n  max_gap: 90m\n", 8, "max_gap must be at least 2h"},
+		{"negative min stratified", base + "detect:\n  hold_time: 6h\n  min_stratified: -1h\n", 9, "min_stratified must not be negative"},
 		{"unknown kind", base + "alerts:\n  receivers:\n    - name: r\n      type: log\n      kinds: [turnover]\n", 11, `unknown event kind "turnover"`},
 		{"zero max depth", "mqtt:\n  subscriptions:\n    - topic: a\nsites:\n  - id: x\n", 5, "max_depth_m must be greater than 0"},
 	}

@@ -69,6 +69,8 @@ func Defaults(c *Config) {
 	setD(&d.SensorFaultAfter, 6*time.Hour)
 	setD(&d.ProjectionWindow, 5*24*time.Hour)
 	setF(&d.MinSurfaceDepth, 2)
+	setD(&d.MaxGap, 7*24*time.Hour)
+	setD(&d.MinStratified, 7*24*time.Hour)
 
 	for i := range c.Alerts.Receivers {
 		r := &c.Alerts.Receivers[i]

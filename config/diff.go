@@ -42,6 +42,8 @@ var liveFields = map[string]bool{
 	"detect.sensor_fault_after":       true,
 	"detect.projection_window":        true,
 	"detect.min_surface_depth_m":      true,
+	"detect.max_gap":                  true,
+	"detect.min_stratified":           true,
 	"log.level":                       true,
 	"alerts.status_url":               true,
 }

@@ -60,6 +60,8 @@ func TestDiff(t *testing.T) {
 		{"nothing", "", "", true, nil},
 		{"hold time", "hold_time: 6h", "hold_time: 12h", true, []string{"detect.hold_time"}},
 		{"threshold added", "  hold_time: 6h\n", "  hold_time: 6h\n  strat_density_diff: 0.2\n", true, []string{"detect.strat_density_diff"}},
+		{"gap and stratified time", "  hold_time: 6h\n", "  hold_time: 6h\n  max_gap: 3d\n  min_stratified: 10d\n", true,
+			[]string{"detect.max_gap", "detect.min_stratified"}},
 		{"log level", "level: info", "level: debug", true, []string{"log.level"}},
 		{"log format", "level: info", "level: info\n  format: json", false, []string{"log.format"}},
 		{"receiver added", "    - name: ops\n", "    - name: pager\n      type: log\n    - name: ops\n", true, []string{"alerts.receivers[pager]"}},

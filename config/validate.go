@@ -388,6 +388,12 @@ func (v *validator) detect(c *Config) {
 	if d.ProjectionWindow > 0 && (d.ProjectionWindow.D() < 24*time.Hour || d.ProjectionWindow.D() > 14*24*time.Hour) {
 		v.fail("between 1d and 14d; 3d-7d is the usual window", "projection_window out of range", "detect", "projection_window")
 	}
+	if d.MaxGap.D() < 2*time.Hour {
+		v.fail("at least 2h (default 7d)", "max_gap must be at least 2h", "detect", "max_gap")
+	}
+	if d.MinStratified < 0 {
+		v.fail("e.g. 7d (default)", "min_stratified must not be negative", "detect", "min_stratified")
+	}
 }
 
 func (v *validator) alerts(c *Config, ids map[string]int) {

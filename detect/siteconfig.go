@@ -312,6 +312,8 @@ func SiteConfigFrom(d config.Detect, s config.Site) (SiteConfig, error) {
 	setD(&c.IceHold, d.IceHoldTime)
 	setD(&c.SensorFaultAfter, d.SensorFaultAfter)
 	setD(&c.ProjectionWindow, d.ProjectionWindow)
+	setD(&c.MaxGap, d.MaxGap)
+	setD(&c.MinStratified, d.MinStratified)
 
 	for _, in := range s.Intakes {
 		k := IntakeConfig{Name: in.Name, Depth: in.Depth, MaxRateCPerH: in.MaxRateCPerH}

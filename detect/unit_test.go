@@ -289,8 +289,19 @@ func TestSiteConfigFrom(t *testing.T) {
 	}
 	def := DefaultSiteConfig("x")
 	if c.Hold != 3*time.Hour || c.IceHold != def.IceHold || c.Thresholds.StratDensityDiff != 0.2 || c.Thresholds.TmdDelta != 0.3 ||
-		c.Hysteresis != 0.5 || c.ProjectionWindow != 5*24*time.Hour || c.FrazilMaxC != 0.1 || c.FrazilAirC != -6 || c.SensorFaultAfter != 6*time.Hour {
+		c.Hysteresis != 0.5 || c.ProjectionWindow != 5*24*time.Hour || c.FrazilMaxC != 0.1 || c.FrazilAirC != -6 || c.SensorFaultAfter != 6*time.Hour ||
+		c.MaxGap != DefaultMaxGap || c.MinStratified != DefaultMinStratified {
 		t.Errorf("defaults not applied: %+v", c)
+	}
+	// detect.max_gap and detect.min_stratified reach the site's configuration.
+	d2 := d
+	d2.MaxGap, d2.MinStratified = config.Duration(3*24*time.Hour), config.Duration(10*24*time.Hour)
+	if c2, err := SiteConfigFrom(d2, site); err != nil || c2.MaxGap != 3*24*time.Hour || c2.MinStratified != 10*24*time.Hour {
+		t.Errorf("max gap / min stratified not mapped: %v %v (%v)", c2.MaxGap, c2.MinStratified, err)
+	}
+	d2.MaxGap = config.Duration(time.Hour)
+	if _, err := SiteConfigFrom(d2, site); err == nil || !strings.Contains(err.Error(), "data gap") {
+		t.Errorf("max gap of 1 h accepted: %v", err)
 	}
 	if c.Location.String() != "America/Chicago" || c.Expected[0] != 0.5 || c.Expected[2] != 10 {
 		t.Errorf("site fields: %v %v", c.Location, c.Expected)

@@ -884,6 +884,13 @@ func (d *daemon) health() Health {
 	if err := d.sub.LastError(); err != nil && !h.BrokerConnected {
 		h.BrokerError = err.Error()
 	}
+	if h.BrokerConnected {
+		select {
+		case <-d.sub.Subscribed():
+		default:
+			h.BrokerConnected, h.BrokerError = false, "connected, not yet subscribed"
+		}
+	}
 	st, err := d.spool.Stats()
 	h.SpoolPending, h.SpoolOldest, h.SpoolBytes, h.SpoolMaxBytes, h.DeadLetters = st.Pending, st.OldestPending, st.Bytes, st.MaxBytes, st.DeadLetters
 	cerr, lastOK := d.com.CommitError()

@@ -281,6 +281,7 @@ func TestRunFeedsDetection(t *testing.T) {
 	mq := testenv.StartMosquitto(t, testenv.MosquittoOptions{Extra: testenv.MosquittoUserLine()})
 	tap := &dtTap{}
 	base, _ := dtRun(t, Options{Config: dtConfig(t, mq.URL), Tap: tap})
+	dtWait(t, "subscribed (ready)", func() bool { code, _ := dtGet(t, base+"/readyz", ""); return code == 200 })
 	pub := newE2EPublisher(t, mq.URL, "dt-pub")
 	t0 := time.Now().UTC().Add(-24 * time.Hour).Truncate(time.Hour)
 	var msgs []e2eMsg
