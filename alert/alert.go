@@ -89,6 +89,10 @@ type Options struct {
 	LockTimeout time.Duration    // wait for the bolt file lock; default 5 s
 	Retention   time.Duration    // delivered alerts and closed episodes are pruned after this; default 90 days
 	LogSize     int              // entries kept for Recent; default 500
+	// OnOutcome, when set, is called after every delivery attempt that ends in
+	// delivered, failed or a scheduled retry (e.g. to feed the status page's alert log).
+	// It runs on the receiver's worker and must not block.
+	OnOutcome func(Outcome)
 
 	// after is the timer used by workers (tests inject a fake clock); default time.NewTimer.
 	after func(time.Duration) (<-chan time.Time, func() bool)
@@ -109,6 +113,7 @@ type Dispatcher struct {
 	queues    map[string]*queue
 	met       *metrics
 	alog      *alertLog
+	onOutcome func(Outcome)
 	retention time.Duration
 	hooks     hooks
 
@@ -166,6 +171,7 @@ func Open(o Options) (*Dispatcher, error) {
 		size = DefaultLogSize
 	}
 	d.alog = &alertLog{max: size}
+	d.onOutcome = o.OnOutcome
 	if o.HTTPClient != nil {
 		c := *o.HTTPClient
 		c.CheckRedirect = noRedirect

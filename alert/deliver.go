@@ -265,8 +265,27 @@ func (d *Dispatcher) worker(ctx context.Context, r *receiver, results chan<- res
 	}
 }
 
-// account updates metrics and logs for one attempt.
+// Outcome is what became of one delivery attempt, for observers such as the status page.
+type Outcome struct {
+	Time      time.Time // wall-clock time of the attempt (UTC)
+	Receiver  string
+	AlertID   string
+	SiteID    string
+	Kind      string
+	Status    string // firing, resolved, reminder, update
+	EventTime time.Time
+	Summary   string
+	State     string // delivered, pending (will retry) or failed
+	Error     string
+}
+
+// account updates metrics and logs for one attempt and tells Options.OnOutcome.
 func (d *Dispatcher) account(r *receiver, it *item, res result) {
+	if d.onOutcome != nil && it.payload != nil {
+		p := it.payload
+		d.onOutcome(Outcome{Time: res.lastTry, Receiver: r.name, AlertID: it.alertID, SiteID: p.Site.ID, Kind: string(p.Kind),
+			Status: string(p.Status), EventTime: p.EventTime, Summary: p.Summary, State: res.state, Error: res.errText})
+	}
 	attrs := []any{"receiver", r.name, "id", it.alertID, "attempt", res.attempts}
 	switch res.state {
 	case StateDelivered:

@@ -199,6 +199,13 @@ func (d *Dispatcher) apply(tx *bolt.Tx, ev detect.Event, now time.Time) ([]*item
 		if err != nil {
 			return nil, "", err
 		}
+		if ev.Time.Before(ep.Onset) {
+			// A resolution older than the open episode ended an earlier one:
+			// it was re-fed after a restart (detection replays from its last
+			// checkpoint) and was handled when it first came.
+			d.log.Debug("resolved event older than the open episode: re-fed, ignored", append(attrs, "episode", ep.ID)...)
+			return nil, "duplicate", nil
+		}
 		ep.Open, ep.End, ep.Closed, ep.Latest = false, ev.Time, now, ev
 		if err := putEpisode(tx, ep); err != nil {
 			return nil, "", err

@@ -73,6 +73,14 @@ type Entry struct {
 	Reading
 }
 
+// ReadingSink takes committed readings in sequence order: the detection
+// engine (internal/engine.Engine) in the daemon. Add reports whether the
+// reading came too late for its profile (the caller then stores it again
+// flagged QCLate).
+type ReadingSink interface {
+	Add(r Reading) (late bool)
+}
+
 // DerivedPoint is one spooled derived point in line protocol. The writer
 // stores it only once every reading up to After is stored (so that a
 // re-flagged reading overwrites the original, never the reverse).

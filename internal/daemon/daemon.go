@@ -153,6 +153,7 @@ type daemon struct {
 	alCancel context.CancelFunc
 	alDone   chan error
 	store    *status.Store
+	ownStore bool // the daemon made store and feeds its alert log
 	ckInt    time.Duration
 
 	feedWake chan struct{}
@@ -282,6 +283,7 @@ func open(o Options) (d *daemon, err error) {
 			metas = append(metas, status.SiteMeta{ID: s.ID, Name: s.Name, MaxDepth: s.MaxDepth, Intakes: s.Intakes, Depths: s.Depths})
 		}
 		d.store = status.NewStore(metas, 0)
+		d.ownStore = true
 	}
 	d.air = make(chan AirTemp, 256)
 	if d.al, err = d.openAlerts(cfg); err != nil {
@@ -348,6 +350,16 @@ func (d *daemon) openAlerts(cfg *config.Config) (*alert.Dispatcher, error) {
 		return nil, fmt.Errorf("daemon: %w", err)
 	}
 	ao.Logger, ao.Registerer = d.log.With("component", "alert"), d.reg
+	if store := d.store; store != nil && d.ownStore {
+		// The status page's alert log: every delivery that ended, per receiver.
+		ao.OnOutcome = func(o alert.Outcome) {
+			if o.State == alert.StatePending {
+				return
+			}
+			store.ObserveAlert(status.AlertLine{Time: o.EventTime, Site: o.SiteID, Kind: o.Kind, Status: o.Status,
+				Receiver: o.Receiver, Summary: o.Summary, Delivered: o.State == alert.StateDelivered, Error: o.Error})
+		}
+	}
 	al, err := alert.Open(ao)
 	if err != nil {
 		return nil, fmt.Errorf("daemon: alert outbox: %w", err)
@@ -700,6 +712,7 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 // feedAll feeds every committed reading after d.fed and spools the derived
 // points, so that they are durable before any checkpoint includes them.
 func (d *daemon) feedAll() error {
+	var sink ingest.ReadingSink = d.eng
 	var buf []ingest.Entry
 	for {
 		var err error
@@ -712,7 +725,7 @@ func (d *daemon) feedAll() error {
 		}
 		for i := range buf {
 			e := &buf[i]
-			if d.eng.Add(e.Reading) {
+			if sink.Add(e.Reading) {
 				if e.Redelivered {
 					// A broker redelivery of a reading detected before (beyond
 					// the duplicate memory): not late, and its stored flags stand.
