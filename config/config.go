@@ -20,6 +20,8 @@ type Config struct {
 
 	warnings     []string
 	explicitQoS0 bool
+	// explicitNoMemoryLimit: storage.memory_limit is written as 0.
+	explicitNoMemoryLimit bool
 }
 
 // Secret is a credential. It is read from File or from the environment variable
@@ -105,6 +107,12 @@ type Storage struct {
 	Dir           string   `yaml:"dir"`
 	SpoolMaxBytes ByteSize `yaml:"spool_max_bytes"` // back-pressure above this
 	DeadLetterMax int      `yaml:"dead_letter_max"` // entries kept; oldest dropped first
+	// MemoryLimit is the daemon's soft memory limit (Go runtime, see
+	// runtime/debug.SetMemoryLimit): the garbage collector works harder as
+	// the process nears it. Default DefaultMemoryLimit; 0 written in the
+	// file means no limit. The GOMEMLIMIT environment variable, when set,
+	// takes precedence.
+	MemoryLimit ByteSize `yaml:"memory_limit"`
 }
 
 // Site is one lake or reservoir with one buoy.

@@ -15,6 +15,7 @@ const (
 	DefaultStorageDir      = "/var/lib/holomix"
 	DefaultSpoolMaxBytes   = 1 << 30
 	DefaultDeadLetterMax   = 10000
+	DefaultMemoryLimit     = 128 << 20 // soft limit: holds 1,000 sites of 30 sensors under 150 MB resident
 	DefaultListen          = "127.0.0.1:8750"
 	DefaultReceiverTimeout = 10 * time.Second
 	DefaultIntakeRate      = 1.0 // °C per hour
@@ -44,6 +45,9 @@ func Defaults(c *Config) {
 		st.SpoolMaxBytes = DefaultSpoolMaxBytes
 	}
 	setI(&st.DeadLetterMax, DefaultDeadLetterMax)
+	if st.MemoryLimit == 0 && !c.explicitNoMemoryLimit {
+		st.MemoryLimit = DefaultMemoryLimit
+	}
 
 	for i := range c.Sites {
 		s := &c.Sites[i]

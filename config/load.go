@@ -102,6 +102,7 @@ func Parse(b []byte, o Options) (*Config, error) {
 	}
 	cfg.absPaths(o.BaseDir)
 	cfg.explicitQoS0 = cfg.MQTT.QoS == 0 && nodeAt(&root, "mqtt", "qos") != nil
+	cfg.explicitNoMemoryLimit = cfg.Storage.MemoryLimit == 0 && nodeAt(&root, "storage", "memory_limit") != nil
 	Defaults(cfg)
 	v := &validator{root: &root}
 	if len(probs) == 0 {

@@ -126,6 +126,12 @@ type hourRec struct {
 	ActSq  float64 `json:"act_sq,omitempty"`
 	ActNV  float64 `json:"act_nv,omitempty"`
 	ActNV2 float64 `json:"act_nv2,omitempty"` // sum of the squared noise variances
+	// TmdDev: column mean minus the mean Tmd of the sensors present, °C;
+	// TmdSpread: largest minus smallest sensor departure from its own Tmd,
+	// °C (0 for a uniform column); valid when TmdOK (see stepTmdCrossing).
+	TmdDev    float64 `json:"tmd_dev_c,omitempty"`
+	TmdSpread float64 `json:"tmd_spread_c,omitempty"`
+	TmdOK     bool    `json:"tmd_ok,omitempty"`
 }
 
 type iceState struct {
@@ -206,6 +212,8 @@ func (s *Site) closeHour(ev *evCtx) {
 	top, bot := -1, -1
 	var topMean, botMean, sumAct, sumSq, sumNV, sumNV2 float64
 	nAct, nPresent := 0, 0
+	var sumTmd float64
+	devLo, devHi := math.Inf(1), math.Inf(-1)
 	for i := range s.st.Slots {
 		sl := &s.st.Slots[i]
 		if sl.BinN == 0 {
@@ -230,6 +238,9 @@ func (s *Site) closeHour(ev *evCtx) {
 			dnv = 2 * sl.PrevNV
 		}
 		nPresent++
+		tmd := water.Tmd(s.cfg.Salinity, water.PressureDbar(sl.Depth))
+		sumTmd += tmd
+		devLo, devHi = math.Min(devLo, mean-tmd), math.Max(devHi, mean-tmd)
 		if top < 0 {
 			top, topMean = i, mean
 			if contiguous && sl.PrevOK {
@@ -258,6 +269,9 @@ func (s *Site) closeHour(ev *evCtx) {
 	} else {
 		rec.DTopOK = false
 	}
+	if rec.MeanOK && nPresent >= 2 && s.coversColumn(s.st.Slots[top].Depth, s.st.Slots[bot].Depth) {
+		rec.TmdDev, rec.TmdSpread, rec.TmdOK = rec.Mean-sumTmd/float64(nPresent), devHi-devLo, true
+	}
 	if nAct >= 2 && 2*nAct >= nPresent {
 		rec.Act, rec.ActOK = sumAct/float64(nAct), true
 		rec.ActSq, rec.ActNV, rec.ActNV2 = sumSq, sumNV, sumNV2
@@ -277,6 +291,7 @@ func (s *Site) closeHour(ev *evCtx) {
 	s.st.Hours = append(s.st.Hours[k:], rec)
 
 	s.updatePeak(rec, gap)
+	s.stepTmdCrossing(ev, contiguous)
 	at := b.Start.Add(time.Hour)
 	s.updateFit(at)
 	s.stepIce(ev, at)
@@ -323,20 +338,24 @@ func (s *Site) updatePeak(rec hourRec, gap time.Duration) {
 	}
 }
 
-// iceSignals computes the ice detector's signals over the 24 hours before at.
+// iceSignals computes the ice detector's signals over the 24 hours before at
+// (hours starting in [at − 24 h, at); at may lie in the past).
 func (s *Site) iceSignals(at time.Time) IceSignals {
 	from := at.Add(-iceWindow)
 	var sD2, sDNV, sDNV2, sA, sASq, sANV, sANV2, sG float64
 	nD, nA, nG := 0, 0, 0
 	var sig IceSignals
-	lastTopOK := false
+	lastTopOK, seenLast := false, false
 	for i := len(s.st.Hours) - 1; i >= 0; i-- {
 		r := &s.st.Hours[i]
 		if r.Start.Before(from) {
 			break
 		}
-		if i == len(s.st.Hours)-1 {
-			sig.TopC, lastTopOK = r.Top, r.TopOK
+		if !r.Start.Before(at) {
+			continue
+		}
+		if !seenLast {
+			sig.TopC, lastTopOK, seenLast = r.Top, r.TopOK, true
 		}
 		if r.DTopOK {
 			sD2 += r.DTop * r.DTop
@@ -376,7 +395,10 @@ func (s *Site) iceSignals(at time.Time) IceSignals {
 // Ice on: for IceHold, every hourly 24-hour window shows the top at least
 // InverseDeltaT colder than the bottom (Pierson et al. 2011), a damped top
 // sensor, a calm column and a top colder than iceGateC. The onset is
-// estimated as the start of the first such window.
+// estimated as the start of the first window of the sheltered spell that
+// led to it (see shelteredSince): the calm is the direct signature of the
+// ice lid, while the gradient can take days to reach InverseDeltaT at the
+// top sensor.
 //
 // Ice off: for IceHold, every window shows open water: the top−bottom
 // gradient weaker than InverseDeltaT×(1−Hysteresis) (end of the inverse
@@ -430,7 +452,7 @@ func (s *Site) stepIce(ev *evCtx, at time.Time) {
 	}
 	ic.Pending = false
 	if !ic.On {
-		onset := ic.PendingSince.Add(-iceWindow)
+		onset := s.shelteredSince(ic.PendingSince).Add(-iceWindow)
 		first, note := s.st.Summary.First, "the record began under these conditions: ice may have formed before the first profile"
 		if !s.st.Resumed.IsZero() {
 			first, note = s.st.Resumed, "the data resumed after a gap under these conditions: ice may have formed during the gap"
@@ -473,6 +495,40 @@ func (s *Site) stepIce(ev *evCtx, at time.Time) {
 	s.st.Peak = peakState{}
 	for i := range s.cfg.Intakes {
 		s.openIntakeRisk(ev, i, "spring mixing after ice-off", onset)
+	}
+}
+
+// shelteredSince walks back from the end of the first window that met every
+// ice-on condition (first) over the earlier hourly windows, as long as each
+// was sheltered: a damped top sensor and a calm column (both within their
+// ice limits), a top colder than iceGateC, and the top no warmer than the
+// bottom (the inverse gradient developing but not yet InverseDeltaT). It
+// returns the end of the earliest window of that unbroken spell.
+//
+// Why: under a new ice lid the wind stops stirring the water at once, but a
+// top sensor below the surface (0.75-1 m is usual) sits under a cold layer
+// only centimetres thick, and in a column already below Tmd (a shallow pond
+// stirred down to 2-3 °C before it froze) the top sensor can take days to
+// read InverseDeltaT colder than the bottom: on the simulator's 3 m pond the
+// gradient at 0.75 m took 2-4 days to reach 0.1 °C while the column had
+// been calm since the night of the freeze. Keying the onset on the gradient
+// alone put it 2-2.5 days late there. Open water that is merely calm raises
+// no ice on this account: the walk-back only dates an ice cover that the
+// full test has already confirmed. It is bounded by the hourly record kept
+// (the projection window, at least a day).
+func (s *Site) shelteredSince(first time.Time) time.Time {
+	a := first
+	for {
+		prev := a.Add(-time.Hour)
+		if len(s.st.Hours) == 0 || prev.Add(-iceWindow).Before(s.st.Hours[0].Start) {
+			return a
+		}
+		sig := s.iceSignals(prev)
+		if !sig.OK || sig.TopMinusBottomC > 0 || sig.TopChangeCPerH > IceTopChangeMaxCPerH ||
+			sig.ActivityCPerH > IceActivityMaxCPerH || sig.TopC >= s.gateC {
+			return a
+		}
+		a = prev
 	}
 }
 

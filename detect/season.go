@@ -228,19 +228,8 @@ func (s *Site) transition(ev *evCtx, from, to string, onset time.Time, seasonal 
 			return
 		}
 		ss.MaxDensityArmed = false
-		n := len(m.TmdC)
-		worst := worstTmdDeparture(p.Temps, m.TmdC)
-		e := s.event(ev, KindMaxDensityReached, StatusFiring, "info", "column",
-			fmt.Sprintf("%s: the whole column is within ±%.2g °C of its temperature of maximum density (%.2f-%.2f °C by depth); mean %.2f °C, since about %s.",
-				s.name(), s.cfg.Thresholds.TmdDelta, m.TmdC[n-1], m.TmdC[0], m.MeanTempC, clock(onset)))
-		e.From, e.To = from, to
-		e.Details["onset"] = stamp(onset)
-		e.Details["held_for"] = hours(held)
-		e.Details["tmd_method"] = "Chen & Millero 1986 at each sensor's pressure and the site's salinity"
-		e.Metrics = append(e.Metrics, Metric{"tmd_surface_c", m.TmdC[0], "°C"}, Metric{"tmd_bottom_c", m.TmdC[n-1], "°C"},
-			Metric{"largest_departure_c", worst, "°C"})
-		ev.add(e)
-		sum.TmdReached = append(sum.TmdReached, onset)
+		s.maxDensityEvent(ev, from, onset, p,
+			fmt.Sprintf("every sensor within ±%.2g °C of its Tmd, held for %s", s.cfg.Thresholds.TmdDelta, hours(held)))
 	case SeasonInverse:
 		if !ss.InverseArmed {
 			return
@@ -261,26 +250,115 @@ func (s *Site) transition(ev *evCtx, from, to string, onset time.Time, seasonal 
 	}
 }
 
-// overturnSeason says whether an overturn is a fall or a spring one. Fall
-// when the column is past its seasonal peak: its mean at least 1 °C below the
-// warmest hourly mean since the column was last at or below Tmd + δ (or
-// since ice-off, the start, or a gap of more than 30 days), that peak being
-// at least 10 days old ("after midsummer"). With no such peak on record (a
-// record starting in the fall), fall when the mean has been falling over the
-// projection window (least-squares slope < 0 over at least 24 hourly means).
-// Spring otherwise.
+// maxDensityEvent raises max_density_reached with the given onset; basis
+// says which rule found it (the held band, or the crossing of
+// stepTmdCrossing).
+func (s *Site) maxDensityEvent(ev *evCtx, from string, onset time.Time, p Profile, basis string) {
+	m := &s.met
+	n := len(m.TmdC)
+	worst := worstTmdDeparture(p.Temps, m.TmdC)
+	e := s.event(ev, KindMaxDensityReached, StatusFiring, "info", "column",
+		fmt.Sprintf("%s: the whole column is within ±%.2g °C of its temperature of maximum density (%.2f-%.2f °C by depth); mean %.2f °C, since about %s.",
+			s.name(), s.cfg.Thresholds.TmdDelta, m.TmdC[n-1], m.TmdC[0], m.MeanTempC, clock(onset)))
+	e.From, e.To = from, SeasonMaxDensity
+	e.Details["onset"] = stamp(onset)
+	e.Details["held_for"] = hours(ev.t.Sub(onset))
+	e.Details["criterion"] = basis
+	e.Details["tmd_method"] = "Chen & Millero 1986 at each sensor's pressure and the site's salinity"
+	e.Metrics = append(e.Metrics, Metric{"tmd_surface_c", m.TmdC[0], "°C"}, Metric{"tmd_bottom_c", m.TmdC[n-1], "°C"},
+		Metric{"largest_departure_c", worst, "°C"})
+	ev.add(e)
+	s.st.Summary.TmdReached = append(s.st.Summary.TmdReached, onset)
+}
+
+// stepTmdCrossing recognises a uniform column passing through its
+// temperature of maximum density faster than the held band can see it.
+//
+// The band rule (every sensor within ±TmdDelta of its Tmd for Hold) needs
+// the column to linger: a shallow pond cooling 0.1 °C an hour under a cold
+// night crosses the ±0.3 °C band in about 6 hours and can be through it
+// before the hold is over (the 3 m pond of the simulator did so in 2 of 20
+// seasons). The crossing rule (design choice, no published method): at the
+// end of each hour, when the hourly column mean, less the mean Tmd of the
+// sensors, changes sign from the previous contiguous hour, and in both hours
+// the sensors' departures from their own Tmd differ by at most TmdDelta
+// (the column is uniform, so every sensor passes through its Tmd with the
+// mean) and the chain covers the column (MinCoverage), the column has
+// reached its maximum density. The onset is the crossing time interpolated
+// between the two hours' midpoints, or the start of a pending band hold
+// when that is earlier. It raises the same max_density_reached, once per
+// passage (the same arming as the band rule, so never twice), not under
+// inferred ice and not while seasonally stratified. A column that is
+// layered when its mean passes Tmd (a lake freezing with its bottom at 5-6 °C
+// and inversely layered beneath the ice) is not uniform and raises nothing.
+// The seasonal state is left to the band rule: the column is only passing
+// through.
+func (s *Site) stepTmdCrossing(ev *evCtx, contiguous bool) {
+	ss := &s.st.Season
+	n := len(s.st.Hours)
+	if !contiguous || n < 2 || !ss.MaxDensityArmed || s.st.Ice.On || ss.Current == SeasonStratified || len(s.met.TmdC) == 0 {
+		return
+	}
+	prev, cur := &s.st.Hours[n-2], &s.st.Hours[n-1]
+	if !prev.TmdOK || !cur.TmdOK || prev.TmdSpread > s.cfg.Thresholds.TmdDelta || cur.TmdSpread > s.cfg.Thresholds.TmdDelta {
+		return
+	}
+	if (prev.TmdDev > 0) == (cur.TmdDev > 0) {
+		return
+	}
+	f := prev.TmdDev / (prev.TmdDev - cur.TmdDev)
+	onset := prev.Start.Add(30*time.Minute + time.Duration(f*float64(time.Hour)))
+	if ss.Pending == SeasonMaxDensity && ss.PendingSince.Before(onset) {
+		onset = ss.PendingSince
+	}
+	ss.MaxDensityArmed = false
+	dir := "cooling"
+	if cur.TmdDev > 0 {
+		dir = "warming"
+	}
+	from := ss.Current
+	if from == "" {
+		from = SeasonUnknown
+	}
+	s.maxDensityEvent(ev, from, onset, Profile{Temps: s.col.Temps},
+		fmt.Sprintf("uniform column (sensor departures from Tmd within %.2g °C of each other) whose hourly mean passed through its Tmd, %s from %+.2f to %+.2f °C, faster than a %s hold in the ±%.2g °C band",
+			s.cfg.Thresholds.TmdDelta, dir, prev.TmdDev, cur.TmdDev, hours(s.cfg.Hold), s.cfg.Thresholds.TmdDelta))
+}
+
+// overturnSeason says whether an overturn is a fall or a spring one, from
+// the column's own record (no calendar, so either hemisphere):
+//   - fall when the column is past its seasonal peak: its mean at least 1 °C
+//     below the warmest hourly mean since the column was last at or below
+//     Tmd + δ (or since ice-off, the start, or a gap of more than 30 days),
+//     that peak being at least 10 days old ("after midsummer");
+//   - spring when the column rose to a peak on record less than 10 days ago
+//     (it is still warming towards its summer);
+//   - otherwise, when no peak is on record — the warmest mean is the first
+//     day of the record (or of the data after a gap): the record began on
+//     the cooling limb, as a buoy deployed in autumn does — by the trend of
+//     the column mean over the projection window (least-squares slope over at
+//     least 24 hourly means): cooling is fall, warming is spring;
+//   - spring when there is no trend either.
 func (s *Site) overturnSeason() (season, basis string) {
 	pk := s.st.Peak
 	now := s.st.Last
 	if pk.OK && pk.MaxC-s.met.MeanTempC >= 1 && now.Sub(pk.Time) >= 10*24*time.Hour {
 		return "fall", fmt.Sprintf("column mean %.1f °C below its warmest %.1f °C of %s", pk.MaxC-s.met.MeanTempC, pk.MaxC, pk.Time.Format("2006-01-02"))
 	}
-	f := s.st.Fit.Mean
-	if pk.OK && now.Sub(pk.Time) < 10*24*time.Hour {
+	recStart := s.st.Summary.First
+	if !s.st.Resumed.IsZero() {
+		recStart = s.st.Resumed
+	}
+	onRecord := pk.OK && pk.Time.Sub(recStart) >= 24*time.Hour
+	if onRecord && now.Sub(pk.Time) < 10*24*time.Hour {
 		return "spring", fmt.Sprintf("column mean near its warmest so far (%.1f °C on %s)", pk.MaxC, pk.Time.Format("2006-01-02"))
 	}
+	f := s.st.Fit.Mean
 	if f.OK && f.N >= 24 && f.Slope < 0 {
-		return "fall", fmt.Sprintf("column mean cooling at %.2f °C/day over the last %.1f days", -f.Slope, f.SpanDays)
+		return "fall", fmt.Sprintf("no seasonal peak on record; column mean cooling at %.2f °C/day over the last %.1f days", -f.Slope, f.SpanDays)
 	}
-	return "spring", "column mean not past a seasonal peak and not cooling"
+	if f.OK && f.N >= 24 && f.Slope > 0 {
+		return "spring", fmt.Sprintf("no seasonal peak on record; column mean warming at %.2f °C/day over the last %.1f days", f.Slope, f.SpanDays)
+	}
+	return "spring", "column mean not past a seasonal peak and no trend on record"
 }

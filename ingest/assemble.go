@@ -131,6 +131,15 @@ func (a *Assembler) Interval() time.Duration { return time.Duration(a.interval) 
 // Watermark returns the watermark duration.
 func (a *Assembler) Watermark() time.Duration { return time.Duration(a.watermark) }
 
+// Sites returns the ids of the sites with assembly state, in no particular order.
+func (a *Assembler) Sites() []string {
+	ids := make([]string, 0, len(a.sites))
+	for id := range a.sites {
+		ids = append(ids, id)
+	}
+	return ids
+}
+
 // Open returns the number of intervals still open over all sites.
 func (a *Assembler) Open() int {
 	n := 0
@@ -412,6 +421,75 @@ type asmBucketState struct {
 	Last  []int64   `json:"last_ns"`
 }
 
+// state returns the saved form of one site.
+func (s *asmSite) state() asmSiteState {
+	ss := asmSiteState{
+		Site:     s.id,
+		Depths:   slices.Clone(s.depths),
+		LastSeen: slices.Clone(s.lastSeen),
+		Gap1:     slices.Clone(s.gap1),
+		Gap2:     slices.Clone(s.gap2),
+	}
+	if s.hasMax {
+		v := s.maxT
+		ss.MaxT = &v
+	}
+	if s.hasNext {
+		v := s.next
+		ss.Next = &v
+	}
+	for _, b := range s.open {
+		ss.Open = append(ss.Open, asmBucketState{
+			Start: b.start, Sum: slices.Clone(b.sum), N: slices.Clone(b.n), Last: slices.Clone(b.last),
+		})
+	}
+	return ss
+}
+
+// AppendSiteState appends the JSON state of one site (the form of one entry
+// of State's sites) to dst; ok is false, and dst is returned unchanged, when
+// the Assembler has no state for the site. RestoreSites reads it back.
+func (a *Assembler) AppendSiteState(dst []byte, id string) (_ []byte, ok bool, err error) {
+	s := a.sites[id]
+	if s == nil {
+		return dst, false, nil
+	}
+	b, err := json.Marshal(s.state())
+	if err != nil {
+		return dst, false, fmt.Errorf("assembler state: site %q: %w", id, err)
+	}
+	return append(dst, b...), true, nil
+}
+
+// RestoreSites replaces the assembly state with per-site states written by
+// AppendSiteState of an Assembler whose profile interval was intervalNS (ns),
+// keyed by site id (the slices are not retained). Like Restore it rejects
+// another interval length than this Assembler's; on error the state is left
+// unchanged.
+func (a *Assembler) RestoreSites(intervalNS int64, states map[string][]byte) error {
+	if intervalNS != a.interval {
+		return fmt.Errorf("assembler state: saved with a %s profile interval, configured %s",
+			time.Duration(intervalNS), time.Duration(a.interval))
+	}
+	sites := make(map[string]*asmSite, len(states))
+	for id, b := range states {
+		var ss asmSiteState
+		if err := json.Unmarshal(b, &ss); err != nil {
+			return fmt.Errorf("assembler state: site %q: %w", id, err)
+		}
+		if ss.Site != id {
+			return fmt.Errorf("assembler state: site %q saved under %q", ss.Site, id)
+		}
+		s, err := a.restoreSite(ss)
+		if err != nil {
+			return err
+		}
+		sites[id] = s
+	}
+	a.sites, a.last = sites, nil
+	return nil
+}
+
 // State returns the assembly state (open intervals, per-sensor timing,
 // watermarks) as JSON, for crash recovery with Restore. Sites are sorted by id.
 func (a *Assembler) State() ([]byte, error) {
@@ -422,28 +500,7 @@ func (a *Assembler) State() ([]byte, error) {
 	}
 	sort.Strings(ids)
 	for _, id := range ids {
-		s := a.sites[id]
-		ss := asmSiteState{
-			Site:     id,
-			Depths:   slices.Clone(s.depths),
-			LastSeen: slices.Clone(s.lastSeen),
-			Gap1:     slices.Clone(s.gap1),
-			Gap2:     slices.Clone(s.gap2),
-		}
-		if s.hasMax {
-			v := s.maxT
-			ss.MaxT = &v
-		}
-		if s.hasNext {
-			v := s.next
-			ss.Next = &v
-		}
-		for _, b := range s.open {
-			ss.Open = append(ss.Open, asmBucketState{
-				Start: b.start, Sum: slices.Clone(b.sum), N: slices.Clone(b.n), Last: slices.Clone(b.last),
-			})
-		}
-		st.Sites = append(st.Sites, ss)
+		st.Sites = append(st.Sites, a.sites[id].state())
 	}
 	b, err := json.Marshal(st)
 	if err != nil {
@@ -471,57 +528,66 @@ func (a *Assembler) Restore(data []byte) error {
 	}
 	sites := make(map[string]*asmSite, len(st.Sites))
 	for _, ss := range st.Sites {
-		nd := len(ss.Depths)
-		if len(ss.LastSeen) != nd || len(ss.Gap1) != nd || len(ss.Gap2) != nd {
-			return fmt.Errorf("assembler state: site %q: per-depth arrays of unequal length", ss.Site)
-		}
 		if _, dup := sites[ss.Site]; dup {
 			return fmt.Errorf("assembler state: site %q twice", ss.Site)
 		}
-		s := a.newSite(ss.Site)
-		for _, d := range ss.Depths {
-			if !finite(d) {
-				return fmt.Errorf("assembler state: site %q: depth %g", ss.Site, d)
-			}
-			if k, ok := s.find(d, a.tol); !ok {
-				s.insertDepth(k, d, s.expected == nil)
-			}
+		s, err := a.restoreSite(ss)
+		if err != nil {
+			return err
 		}
-		// Indices are resolved after every insertion, which shifts them.
-		idx := make([]int, nd)
-		for i, d := range ss.Depths {
-			k, _ := s.find(d, a.tol)
-			idx[i] = k
-			s.lastSeen[k] = max(s.lastSeen[k], ss.LastSeen[i])
-			s.gap1[k], s.gap2[k] = ss.Gap1[i], ss.Gap2[i]
-		}
-		if ss.MaxT != nil {
-			s.maxT, s.hasMax = *ss.MaxT, true
-		}
-		if ss.Next != nil {
-			s.next, s.hasNext = *ss.Next, true
-		}
-		prev := int64(math.MinInt64)
-		for _, bs := range ss.Open {
-			if len(bs.Sum) != nd || len(bs.N) != nd || len(bs.Last) != nd {
-				return fmt.Errorf("assembler state: site %q: open interval arrays of unequal length", ss.Site)
-			}
-			if bs.Start <= prev || floorDiv(bs.Start, a.interval) != bs.Start {
-				return fmt.Errorf("assembler state: site %q: open interval %d out of order or misaligned", ss.Site, bs.Start)
-			}
-			prev = bs.Start
-			b := s.bucket(bs.Start, a.interval)
-			for i, k := range idx {
-				b.sum[k] += bs.Sum[i]
-				b.n[k] += bs.N[i]
-				b.last[k] = max(b.last[k], bs.Last[i])
-			}
-		}
-		s.hint = 0
 		sites[ss.Site] = s
 	}
 	a.sites, a.last = sites, nil
 	return nil
+}
+
+// restoreSite rebuilds one site from its saved form.
+func (a *Assembler) restoreSite(ss asmSiteState) (*asmSite, error) {
+	nd := len(ss.Depths)
+	if len(ss.LastSeen) != nd || len(ss.Gap1) != nd || len(ss.Gap2) != nd {
+		return nil, fmt.Errorf("assembler state: site %q: per-depth arrays of unequal length", ss.Site)
+	}
+	s := a.newSite(ss.Site)
+	for _, d := range ss.Depths {
+		if !finite(d) {
+			return nil, fmt.Errorf("assembler state: site %q: depth %g", ss.Site, d)
+		}
+		if k, ok := s.find(d, a.tol); !ok {
+			s.insertDepth(k, d, s.expected == nil)
+		}
+	}
+	// Indices are resolved after every insertion, which shifts them.
+	idx := make([]int, nd)
+	for i, d := range ss.Depths {
+		k, _ := s.find(d, a.tol)
+		idx[i] = k
+		s.lastSeen[k] = max(s.lastSeen[k], ss.LastSeen[i])
+		s.gap1[k], s.gap2[k] = ss.Gap1[i], ss.Gap2[i]
+	}
+	if ss.MaxT != nil {
+		s.maxT, s.hasMax = *ss.MaxT, true
+	}
+	if ss.Next != nil {
+		s.next, s.hasNext = *ss.Next, true
+	}
+	prev := int64(math.MinInt64)
+	for _, bs := range ss.Open {
+		if len(bs.Sum) != nd || len(bs.N) != nd || len(bs.Last) != nd {
+			return nil, fmt.Errorf("assembler state: site %q: open interval arrays of unequal length", ss.Site)
+		}
+		if bs.Start <= prev || floorDiv(bs.Start, a.interval) != bs.Start {
+			return nil, fmt.Errorf("assembler state: site %q: open interval %d out of order or misaligned", ss.Site, bs.Start)
+		}
+		prev = bs.Start
+		b := s.bucket(bs.Start, a.interval)
+		for i, k := range idx {
+			b.sum[k] += bs.Sum[i]
+			b.n[k] += bs.N[i]
+			b.last[k] = max(b.last[k], bs.Last[i])
+		}
+	}
+	s.hint = 0
+	return s, nil
 }
 
 // Depths returns a copy of the depths (m, ascending) known at a site: its

@@ -150,6 +150,13 @@ type QualityControl struct {
 	// hashing the site name and depth on every reading.
 	sites    map[string]*qcSite
 	lastSite *qcSite
+
+	// Change record for WriteStateChunks: the sites whose sensors changed
+	// since the last call, or all of them.
+	dirty     map[string]struct{}
+	allDirty  bool
+	lastDirty string // the site recorded last (consecutive readings share a site)
+	hasDirty  bool
 }
 
 // qcSite is the lookup cache of one site: its configured depths and its
@@ -207,7 +214,7 @@ func NewQualityControl(c QCConfig) *QualityControl {
 	}
 	c.KnownDepths = known
 	return &QualityControl{c: c, known: known, sensors: make(map[sensorKey]*sensorState), limit: maxSensors,
-		sites: make(map[string]*qcSite)}
+		sites: make(map[string]*qcSite), allDirty: true}
 }
 
 // site returns the lookup cache entry of a site.
@@ -344,6 +351,7 @@ func (q *QualityControl) Check(r *Reading, recv time.Time) QC {
 		}
 		cs.add(mm, s)
 	}
+	q.touch(r.Site)
 	f |= s.check(r, &q.c, f|r.QC&Excluding)
 	r.QC |= f
 	return f

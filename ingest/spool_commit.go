@@ -1,12 +1,15 @@
 package ingest
 
 import (
+	"cmp"
 	"context"
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"iter"
 	"log/slog"
 	"math"
+	"slices"
 	"sync"
 	"time"
 )
@@ -486,6 +489,44 @@ func (c *Committer) Snapshot() (qc, dups []byte, seq uint64, err error) {
 	return qc, c.dups.state(), c.lastSeq, nil
 }
 
+// WriteState saves the quality-control and duplicate memory in per-site
+// chunks for the detection checkpoint (see QualityControl.WriteStateChunks):
+// only the sites whose memory changed since the previous call unless all is
+// set; after a save that failed, call it with all set. It returns the last
+// sequence number the memory includes. The committer waits while it runs
+// (put should be quick: an in-memory insert). It fails, as Snapshot does,
+// when a commit was abandoned after quality control ran.
+func (c *Committer) WriteState(all bool, putQC, putDups ChunkFunc) (seq uint64, err error) {
+	c.stateMu.Lock()
+	defer c.stateMu.Unlock()
+	if c.dirty {
+		return 0, errors.New("committer: quality-control memory is ahead of the spool after an abandoned commit")
+	}
+	if err := c.qc.WriteStateChunks(all, putQC); err != nil {
+		return 0, err
+	}
+	if err := c.dups.writeChunks(all, putDups); err != nil {
+		return 0, err
+	}
+	return c.lastSeq, nil
+}
+
+// RestoreChunks is Restore for memory saved by WriteState: qc and dups yield
+// (site, chunk) pairs (either may yield nothing: start empty).
+func (c *Committer) RestoreChunks(qc, dups iter.Seq2[string, []byte], seq uint64) (replayed int, err error) {
+	c.stateMu.Lock()
+	if err := c.qc.RestoreChunks(qc); err != nil {
+		c.stateMu.Unlock()
+		return 0, err
+	}
+	if err := c.dups.restoreChunks(dups); err != nil {
+		c.stateMu.Unlock()
+		return 0, err
+	}
+	c.stateMu.Unlock()
+	return c.Restore(nil, nil, seq)
+}
+
 // Restore loads memory saved by Snapshot (either may be nil: start empty) and
 // replays the spooled readings after seq through quality control and the
 // duplicate memory, so a message redelivered after a crash is recognised.
@@ -537,6 +578,11 @@ func (c *Committer) Restore(qc, dups []byte, seq uint64) (replayed int, err erro
 type dupMemory struct {
 	window int
 	series map[dupKey]*dupRing
+	// Change record for writeChunks, as in QualityControl.
+	dirty     map[string]struct{}
+	allDirty  bool
+	lastDirty string
+	hasDirty  bool
 }
 
 type dupKey struct {
@@ -555,7 +601,7 @@ const (
 )
 
 func newDupMemory(window int) *dupMemory {
-	return &dupMemory{window: min(window, maxDuplicateWindow), series: make(map[dupKey]*dupRing)}
+	return &dupMemory{window: min(window, maxDuplicateWindow), series: make(map[dupKey]*dupRing), allDirty: true}
 }
 
 func fingerprint(r *Reading) uint32 {
@@ -604,6 +650,13 @@ func (d *dupMemory) remember(r *Reading) {
 		d.series[k] = s
 	}
 	s.add(fingerprint(r), d.window)
+	if !d.allDirty && !(d.hasDirty && r.Site == d.lastDirty) {
+		if d.dirty == nil {
+			d.dirty = make(map[string]struct{})
+		}
+		d.dirty[r.Site] = struct{}{}
+		d.lastDirty, d.hasDirty = r.Site, true
+	}
 }
 
 func (s *dupRing) add(fp uint32, window int) {
@@ -684,6 +737,102 @@ func (d *dupMemory) restore(b []byte) error {
 		series[k] = s
 	}
 	d.series = series
+	d.dirty, d.allDirty, d.hasDirty = nil, true, false
+	return nil
+}
+
+// dupChunkVersion is the first byte of a per-site duplicate-memory chunk.
+const dupChunkVersion = 2
+
+// writeChunks encodes, per site whose memory changed since the last call
+// (every site with all set), the version byte, the series count and per
+// series the depth bits (8 bytes), the fingerprint count (uvarint) and the
+// fingerprints oldest first (4 bytes each), series in depth-bit order; it
+// calls put once per site, sites in ascending order.
+func (d *dupMemory) writeChunks(all bool, put ChunkFunc) error {
+	all = all || d.allDirty
+	dirty := d.dirty
+	d.dirty, d.allDirty, d.hasDirty = nil, false, false
+	type ent struct {
+		depth uint64
+		r     *dupRing
+	}
+	bySite := make(map[string][]ent)
+	for k, r := range d.series {
+		if !all {
+			if _, ok := dirty[k.site]; !ok {
+				continue
+			}
+		}
+		bySite[k.site] = append(bySite[k.site], ent{k.depth, r})
+	}
+	sites := make([]string, 0, len(bySite))
+	for site := range bySite {
+		sites = append(sites, site)
+	}
+	slices.Sort(sites)
+	var b []byte
+	for _, site := range sites {
+		es := bySite[site]
+		slices.SortFunc(es, func(x, y ent) int { return cmp.Compare(x.depth, y.depth) })
+		b = append(b[:0], dupChunkVersion)
+		b = binary.AppendUvarint(b, uint64(len(es)))
+		for _, e := range es {
+			b = binary.BigEndian.AppendUint64(b, e.depth)
+			b = binary.AppendUvarint(b, uint64(len(e.r.fp)))
+			for i := range e.r.fp {
+				b = binary.BigEndian.AppendUint32(b, e.r.fp[(e.r.head+i)%len(e.r.fp)])
+			}
+		}
+		if err := put(site, b); err != nil {
+			return fmt.Errorf("duplicate memory: site %q: %w", site, err)
+		}
+	}
+	return nil
+}
+
+// restoreChunks replaces the memory with chunks written by writeChunks
+// (unchanged on error).
+func (d *dupMemory) restoreChunks(chunks iter.Seq2[string, []byte]) error {
+	series := make(map[dupKey]*dupRing)
+	for site, b := range chunks {
+		if len(b) < 1 || b[0] != dupChunkVersion {
+			return fmt.Errorf("duplicate memory: site %q: chunk version %d, want %d", site, firstByte(b), dupChunkVersion)
+		}
+		r := &chunkReader{p: b[1:]}
+		n := r.uvarint(uint64(len(b)))
+		for i := 0; i < n && !r.bad; i++ {
+			if len(series) >= maxDupSeries {
+				return fmt.Errorf("duplicate memory: more than %d series", maxDupSeries)
+			}
+			if len(r.p) < 8 {
+				r.bad = true
+				break
+			}
+			k := dupKey{site: site, depth: binary.BigEndian.Uint64(r.p)}
+			r.p = r.p[8:]
+			m := r.uvarint(uint64(len(r.p)) / 4)
+			if r.bad {
+				break
+			}
+			s := &dupRing{}
+			for j := 0; j < m; j++ {
+				if m-j <= d.window {
+					s.add(binary.BigEndian.Uint32(r.p[4*j:]), d.window)
+				}
+			}
+			r.p = r.p[4*m:]
+			if _, dup := series[k]; dup {
+				return fmt.Errorf("duplicate memory: site %q: a series listed twice", site)
+			}
+			series[k] = s
+		}
+		if r.bad || len(r.p) != 0 {
+			return fmt.Errorf("duplicate memory: site %q: truncated or corrupt chunk", site)
+		}
+	}
+	d.series = series
+	d.dirty, d.allDirty, d.hasDirty = nil, true, false
 	return nil
 }
 

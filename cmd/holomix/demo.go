@@ -22,6 +22,9 @@ binary; nothing listens beyond 127.0.0.1. Ctrl-C stops it cleanly.
 
 By default the season (15 September to 15 May) takes about 3 minutes.`
 
+// demoTokenEnv holds the InfluxDB token when --influx-token is not given.
+const demoTokenEnv = "HOLOMIX_DEMO_INFLUX_TOKEN"
+
 func runDemo(ctx context.Context, e *env, args []string) int {
 	fs := flag.NewFlagSet("demo", flag.ContinueOnError)
 	fs.SetOutput(e.stderr)
@@ -33,7 +36,7 @@ func runDemo(ctx context.Context, e *env, args []string) int {
 	format := fs.String("format", "json-profile", "buoy payload: json-profile (one message per profile) or json (one per reading)")
 	influxURL := fs.String("influx-url", "", "store readings in this InfluxDB (default: none, readings stay spooled)")
 	influxBucket := fs.String("influx-bucket", "", "InfluxDB bucket (\"database/retention\" on 1.8; default lake/autogen)")
-	influxToken := fs.String("influx-token", "", "InfluxDB token (\"user:password\" on 1.8 with authentication)")
+	influxToken := fs.String("influx-token", "", "InfluxDB token (\"user:password\" on 1.8 with authentication); a command line is visible\nto other users: prefer the environment variable "+demoTokenEnv)
 	logLevel := fs.String("log-level", "warn", "daemon log level on stderr: debug, info, warn or error")
 	fs.Usage = func() {
 		fmt.Fprintln(e.stderr, demoUsage)
@@ -58,6 +61,9 @@ func runDemo(ctx context.Context, e *env, args []string) int {
 	if err := lvl.UnmarshalText([]byte(*logLevel)); err != nil {
 		fmt.Fprintf(e.stderr, "holomix demo: --log-level %q: want debug, info, warn or error\n", *logLevel)
 		return 2
+	}
+	if *influxToken == "" && *influxURL != "" {
+		*influxToken = e.getenv(demoTokenEnv)
 	}
 	o := demo.Options{
 		Speed: *speed, For: *dur, Seed: *seed, Listen: *listen, Dir: *dir, Format: *format,

@@ -69,7 +69,12 @@ func influxDown(ctx context.Context, c *Case) error {
 	}
 	c.s.in.Stop()
 	stopped := time.Now()
-	defer func() { _ = c.s.in.Restart() }() // also on early return
+	restarted := false
+	defer func() {
+		if !restarted { // an early return must not leave the shared database down
+			_ = c.s.in.Restart()
+		}
+	}()
 	time.Sleep(min(3*time.Second, m.InfluxOutage/2))
 	code, body, err := c.d.Readyz()
 	db, _ := body["database"].(map[string]any)
@@ -79,6 +84,7 @@ func influxDown(ctx context.Context, c *Case) error {
 	}
 	time.Sleep(time.Until(stopped.Add(m.InfluxOutage)))
 	pending := c.d.Metric("holomix_spool_readings")
+	restarted = true
 	if err := c.s.in.Restart(); err != nil {
 		return err
 	}
@@ -89,7 +95,10 @@ func influxDown(ctx context.Context, c *Case) error {
 	return <-done
 }
 
-// 2b. InfluxDB down long enough to fill the spool's size limit.
+// 2b. InfluxDB down long enough to fill the spool's size limit: profiles
+// are published chunk by chunk until back-pressure has held for
+// SpoolFullHold (the broker keeps taking them meanwhile), then the database
+// comes back.
 func spoolLimit(ctx context.Context, c *Case) error {
 	c.cfg.SpoolMaxBytes = "1MiB" // the smallest the configuration accepts
 	c.s.in.Stop()
@@ -102,39 +111,43 @@ func spoolLimit(ctx context.Context, c *Case) error {
 	if err := c.start(); err != nil {
 		return err
 	}
-	// Profiles (12 readings a message) fill 1 MiB in a few seconds.
-	steps := max(200, c.stepsFor(c.s.Mode.Traffic)/2)
-	var msgs []rig.Msg
-	for k := 0; k < steps; k++ {
-		msgs = append(msgs, c.stream.ProfilesStep(k)...)
-		c.stream.AddReadings(c.want, k)
+	const chunk = 10 // steps: 10 profiles a site, 12 readings each
+	var since time.Time
+	var spooledAt float64
+	limit := time.Now().Add(3 * time.Minute)
+	for k := 0; since.IsZero() || time.Since(since) < c.s.Mode.SpoolFullHold; k += chunk {
+		if time.Now().After(limit) {
+			return fmt.Errorf("back-pressure not active after %d readings", len(c.want))
+		}
+		var msgs []rig.Msg
+		for j := k; j < k+chunk; j++ {
+			msgs = append(msgs, c.stream.ProfilesStep(j)...)
+			c.stream.AddReadings(c.want, j)
+		}
+		c.steps = k + chunk
+		if err := <-c.traffic(ctx, msgs, 1000); err != nil {
+			return err
+		}
+		if since.IsZero() && c.d.Metric("holomix_backpressure_active") == 1 {
+			since, spooledAt = time.Now(), c.d.Metric("holomix_readings_spooled_total")
+			if c.d.Log.Count("spool full: messages are not acknowledged") == 0 {
+				c.fail("no \"spool full: messages are not acknowledged\" log line")
+			}
+			if code, body, _ := c.d.Readyz(); code != 503 {
+				c.fail("/readyz under back-pressure: %d %v (want 503)", code, body)
+			}
+		}
 	}
-	c.steps, c.alerts = steps, c.stream.ExpectedAlerts(steps)
-	done := c.traffic(ctx, msgs, 400)
-	if !waitFor(ctx, 90*time.Second, func() bool { return c.d.Metric("holomix_backpressure_active") == 1 }) {
-		return errors.New("back-pressure never became active")
-	}
-	since := time.Now()
-	if c.d.Log.Count("spool full: messages are not acknowledged") == 0 {
-		c.fail("no \"spool full: messages are not acknowledged\" log line")
-	}
-	if code, body, _ := c.d.Readyz(); code != 503 {
-		c.fail("/readyz under back-pressure: %d %v (want 503)", code, body)
-	}
-	a := c.d.Metric("holomix_readings_spooled_total")
-	time.Sleep(c.s.Mode.SpoolFullHold)
-	b := c.d.Metric("holomix_readings_spooled_total")
+	c.alerts = c.stream.ExpectedAlerts(c.steps)
+	spooled := c.d.Metric("holomix_readings_spooled_total")
 	acks := c.d.Metric("holomix_mqtt_acks_pending")
-	c.note("back-pressure held %v: spooled %.0f → %.0f readings, %.0f messages unacknowledged, broker keeps the rest",
-		time.Since(since).Round(time.Second), a, b, acks)
-	if b != a {
-		c.fail("readings were spooled under back-pressure (%.0f → %.0f)", a, b)
+	c.note("back-pressure held %v while %d readings were published: spooled %.0f → %.0f, %.0f messages unacknowledged, the broker kept the rest",
+		time.Since(since).Round(time.Second), len(c.want), spooledAt, spooled, acks)
+	if spooled != spooledAt {
+		c.fail("readings were spooled under back-pressure (%.0f → %.0f)", spooledAt, spooled)
 	}
 	restarted = true
 	if err := c.s.in.Restart(); err != nil {
-		return err
-	}
-	if err := <-done; err != nil {
 		return err
 	}
 	c.checks = append(c.checks, func() {

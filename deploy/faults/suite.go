@@ -73,6 +73,7 @@ type Suite struct {
 
 // Result is one scenario's outcome (a row of the table).
 type Result struct {
+	N        int // scenario number
 	Name     string
 	Readings rig.ReadingTally
 	Alerts   rig.AlertTally
@@ -158,9 +159,20 @@ func (s *Suite) Run(ctx context.Context, names []string) []Result {
 
 func (s *Suite) runOne(ctx context.Context, n int, sc Scenario) Result {
 	start := time.Now()
+	// A scenario that failed half-way must not leave the next without a broker or a database.
+	if s.mq.PID() == 0 {
+		if err := s.mq.Restart(); err != nil {
+			return Result{N: n, Name: sc.Name, Failures: []string{err.Error()}}
+		}
+	}
+	if s.in.PID() == 0 {
+		if err := s.in.Restart(); err != nil {
+			return Result{N: n, Name: sc.Name, Failures: []string{err.Error()}}
+		}
+	}
 	c, err := s.newCase(n, sc.Name)
 	if err != nil {
-		return Result{Name: sc.Name, Failures: []string{err.Error()}}
+		return Result{N: n, Name: sc.Name, Failures: []string{err.Error()}}
 	}
 	s.logf("scenario %d %s: start", n, sc.Name)
 	err = sc.Run(ctx, c)
@@ -215,7 +227,7 @@ func (c *Case) fail(format string, a ...any) {
 func (s *Suite) newCase(n int, name string) (*Case, error) {
 	c := &Case{s: s, n: n, name: name, prefix: fmt.Sprintf("f%d", n), db: fmt.Sprintf("f%d", n),
 		dir: filepath.Join(s.Out, fmt.Sprintf("%d-%s", n, name)), want: map[rig.Key]float64{}}
-	c.result.Name = name
+	c.result.Name, c.result.N = name, n
 	if err := os.RemoveAll(c.dir); err != nil {
 		return nil, err
 	}
@@ -422,13 +434,13 @@ func Table(mode Mode, rs []Result) string {
 	var b strings.Builder
 	fmt.Fprintf(&b, "| # | scenario (%s mode) | published | stored | lost | dup | alerts expected | delivered | dup alerts | webhook-id repeats | took | result | notes |\n", mode.Name)
 	b.WriteString("|---|---|---|---|---|---|---|---|---|---|---|---|---|\n")
-	for i, r := range rs {
+	for _, r := range rs {
 		res := "PASS"
 		if !r.OK() {
 			res = "**FAIL**: " + strings.Join(r.Failures, "; ")
 		}
 		notes := r.Notes
-		fmt.Fprintf(&b, "| %d | %s | %d | %d | %d | %d | %d | %d | %d | %d | %v | %s | %s |\n", i+1, r.Name,
+		fmt.Fprintf(&b, "| %d | %s | %d | %d | %d | %d | %d | %d | %d | %d | %v | %s | %s |\n", r.N, r.Name,
 			r.Readings.Published, r.Readings.Stored, r.Readings.Lost, r.Readings.Duplicated,
 			r.Alerts.Expected, r.Alerts.Delivered, r.Alerts.Duplicated, r.Alerts.Repeats, r.Took.Round(time.Second), res,
 			strings.ReplaceAll(strings.Join(notes, "; "), "|", "/"))

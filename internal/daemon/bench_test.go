@@ -70,7 +70,10 @@ type drainResult struct {
 	commitAvg                time.Duration
 	commitReadings           float64
 	rssMB, hwmMB             float64
+	anonMB, fileMB           float64 // resident anonymous and file-backed (bbolt's maps) memory
 	checkpointAvg            time.Duration
+	checkpointN              float64
+	checkpointMB             float64 // written by the last checkpoint
 	ingestTook, storeTook    time.Duration
 	duplicates, acksPendingM float64
 }
@@ -110,17 +113,20 @@ func daemonDrain(t *testing.T, e *e2eEnv, msgs []e2eMsg, readings int) drainResu
 	}
 	if n := m["holomix_checkpoint_duration_seconds_count"]; n > 0 {
 		r.checkpointAvg = time.Duration(m["holomix_checkpoint_duration_seconds_sum"] / n * 1e9)
+		r.checkpointN = n
 	}
+	r.checkpointMB = m["holomix_checkpoint_written_bytes"] / 1e6
 	r.duplicates = m["holomix_readings_duplicate_total"]
-	r.rssMB, r.hwmMB = procMem(t, e.cmd.Process.Pid)
+	r.rssMB, r.hwmMB, r.anonMB, r.fileMB = procMem(t, e.cmd.Process.Pid)
 	if c, _ := e.term(10 * time.Second); c != 0 {
 		t.Fatalf("exit %d", c)
 	}
 	return r
 }
 
-// procMem returns the resident set size and its peak (VmHWM) in MB.
-func procMem(t *testing.T, pid int) (rss, hwm float64) {
+// procMem returns the resident set size, its peak (VmHWM), and its
+// anonymous and file-backed parts, in MiB.
+func procMem(t *testing.T, pid int) (rss, hwm, anon, file float64) {
 	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/status", pid))
 	if err != nil {
 		t.Fatal(err)
@@ -136,15 +142,20 @@ func procMem(t *testing.T, pid int) (rss, hwm float64) {
 			rss = v / 1024
 		case "VmHWM:":
 			hwm = v / 1024
+		case "RssAnon:":
+			anon = v / 1024
+		case "RssFile:":
+			file = v / 1024
 		}
 	}
-	return rss, hwm
+	return rss, hwm, anon, file
 }
 
 func (r drainResult) String() string {
-	return fmt.Sprintf("%d readings: ingest %.0f readings/s (%v), stored in InfluxDB %.0f readings/s (%v); commit %v avg, %.0f readings/commit; checkpoint %v avg; RSS %.0f MB (peak %.0f MB); exact duplicates %v",
+	return fmt.Sprintf("%d readings: ingest %.0f readings/s (%v), stored in InfluxDB %.0f readings/s (%v); commit %v avg, %.0f readings/commit; checkpoint %v avg of %.0f (last wrote %.1f MB); RSS %.0f MB (peak %.0f MB; now %.0f MB anonymous, %.0f MB file-backed); exact duplicates %v",
 		r.readings, r.ingestRate, r.ingestTook.Round(time.Millisecond), r.storeRate, r.storeTook.Round(time.Millisecond),
-		r.commitAvg.Round(time.Microsecond), r.commitReadings, r.checkpointAvg.Round(time.Millisecond), r.rssMB, r.hwmMB, r.duplicates)
+		r.commitAvg.Round(time.Microsecond), r.commitReadings, r.checkpointAvg.Round(time.Millisecond), r.checkpointN, r.checkpointMB,
+		r.rssMB, r.hwmMB, r.anonMB, r.fileMB, r.duplicates)
 }
 
 // e2eManySites returns profile messages for sites × steps with depths each.

@@ -17,17 +17,20 @@
 package daemon
 
 import (
+	"bytes"
 	"context"
 	"crypto/tls"
 	"encoding/binary"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"iter"
 	"log/slog"
 	"net"
 	"net/http"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"strings"
 	"sync"
 	"time"
@@ -160,8 +163,12 @@ type daemon struct {
 	air      chan AirTemp // air temperatures from air_topic subscriptions
 	fed      uint64       // last sequence handed to the engine (feeder goroutine)
 	saved    struct{ eng, qc uint64 }
-	// savedBytes is the size of the last checkpoint.
+	// savedBytes is the size of what the last checkpoint wrote.
 	savedBytes int
+	// ckFull makes the next checkpoint rewrite every site's state (at
+	// start, after a failed checkpoint and after a detection reload)
+	// instead of only the sites that changed since the last one.
+	ckFull bool
 
 	hmu      sync.Mutex // guards the cached delivery counts and spool probe
 	hAt      time.Time
@@ -175,6 +182,7 @@ type daemonMetrics struct {
 	checkpoints      prometheus.Counter
 	checkpointErrors prometheus.Counter
 	checkpointDur    prometheus.Histogram
+	checkpointBytes  prometheus.Gauge
 	fed              prometheus.Counter
 	late             prometheus.Counter
 	lateRedelivered  prometheus.Counter
@@ -191,6 +199,8 @@ func newDaemonMetrics(reg prometheus.Registerer) *daemonMetrics {
 		checkpointDur: prometheus.NewHistogram(prometheus.HistogramOpts{
 			Name: "holomix_checkpoint_duration_seconds", Help: "Time to snapshot and save detection state.",
 			Buckets: prometheus.ExponentialBuckets(0.001, 2, 14)}),
+		checkpointBytes: prometheus.NewGauge(prometheus.GaugeOpts{
+			Name: "holomix_checkpoint_written_bytes", Help: "Encoded state the last checkpoint wrote (the sites changed since the one before)."}),
 		fed: prometheus.NewCounter(prometheus.CounterOpts{
 			Name: "holomix_readings_detected_total", Help: "Spooled readings handed to detection."}),
 		late: prometheus.NewCounter(prometheus.CounterOpts{
@@ -202,7 +212,7 @@ func newDaemonMetrics(reg prometheus.Registerer) *daemonMetrics {
 		httpRejected: prometheus.NewCounterVec(prometheus.CounterOpts{
 			Name: "holomix_http_auth_rejected_total", Help: "HTTP requests refused for missing or wrong credentials."}, []string{"reason"}),
 	}
-	reg.MustRegister(m.checkpoints, m.checkpointErrors, m.checkpointDur, m.fed, m.late, m.lateRedelivered, m.submitErrors, m.httpRejected)
+	reg.MustRegister(m.checkpoints, m.checkpointErrors, m.checkpointDur, m.checkpointBytes, m.fed, m.late, m.lateRedelivered, m.submitErrors, m.httpRejected)
 	return m
 }
 
@@ -211,12 +221,40 @@ func newDaemonMetrics(reg prometheus.Registerer) *daemonMetrics {
 // detection, saves a checkpoint, flushes what the database accepts, closes the
 // database client and returns nil. An error means start-up failed or a
 // component failed fatally.
+//
+// Unless the GOMEMLIMIT environment variable is set, Run sets the Go
+// runtime's soft memory limit to storage.memory_limit (0: none) for its
+// duration.
 func Run(ctx context.Context, o Options) error {
+	if o.Config != nil {
+		restore := applyMemoryLimit(int64(o.Config.Storage.MemoryLimit), o.Logger)
+		defer restore()
+	}
 	d, err := open(o)
 	if err != nil {
 		return err
 	}
 	return d.run(ctx)
+}
+
+// applyMemoryLimit sets the runtime's soft memory limit to limit bytes
+// (<= 0: none) unless GOMEMLIMIT is set, logs the limit in force, and
+// returns a function that puts the previous limit back.
+func applyMemoryLimit(limit int64, log *slog.Logger) (restore func()) {
+	if log == nil {
+		log = slog.New(slog.DiscardHandler)
+	}
+	if env, ok := os.LookupEnv("GOMEMLIMIT"); ok && env != "" {
+		log.Info("memory limit", "limit_bytes", debug.SetMemoryLimit(-1), "from", "GOMEMLIMIT")
+		return func() {}
+	}
+	if limit <= 0 {
+		log.Info("memory limit", "limit", "none", "from", "storage.memory_limit")
+		return func() {}
+	}
+	prev := debug.SetMemoryLimit(limit)
+	log.Info("memory limit", "limit_bytes", limit, "limit_mib", limit>>20, "from", "storage.memory_limit")
+	return func() { debug.SetMemoryLimit(prev) }
 }
 
 func open(o Options) (d *daemon, err error) {
@@ -233,7 +271,7 @@ func open(o Options) (d *daemon, err error) {
 		o.CheckpointInterval = DefaultCheckpointInterval
 	}
 	cfg := o.Config
-	d = &daemon{o: o, cfg: cfg, log: o.Logger, reg: o.Registry, ckInt: o.CheckpointInterval, feedWake: make(chan struct{}, 1)}
+	d = &daemon{o: o, cfg: cfg, log: o.Logger, reg: o.Registry, ckInt: o.CheckpointInterval, feedWake: make(chan struct{}, 1), ckFull: true}
 	d.dir = cfg.Storage.Dir
 	if d.dir == "" {
 		return nil, errors.New("daemon: storage.dir is empty")
@@ -463,6 +501,7 @@ func (d *daemon) swapEngine(cfg *config.Config) error {
 		return err
 	}
 	d.eng = ne
+	d.ckFull = true
 	return nil
 }
 
@@ -489,31 +528,50 @@ func (d *daemon) swapAlerts(cfg *config.Config) error {
 }
 
 // restore loads the last checkpoint and replays what was spooled after it.
+// It reads the per-site format (checkpointFormat) and, once after an
+// upgrade, the single-document format of earlier versions; the first
+// checkpoint after start rewrites everything in the per-site format and
+// removes the old keys.
 func (d *daemon) restore() error {
-	var engState, qcState, dupState []byte
-	err := d.state.Update(func(tx *bolt.Tx) error {
-		b, err := tx.CreateBucketIfNotExists(bktCheckpoint)
-		if err != nil {
-			return err
+	var hasEng bool
+	var replayed int
+	err := d.state.View(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bktCheckpoint)
+		if b == nil {
+			return nil
 		}
-		engState, qcState, dupState = clone(b.Get(keyEngine)), clone(b.Get(keyQC)), clone(b.Get(keyDups))
 		d.saved.eng, d.saved.qc = u64(b.Get(keyEngineSeq)), u64(b.Get(keyQCSeq))
+		if f := u64(b.Get(keyFormat)); f != checkpointFormat {
+			if b.Get(keyFormat) != nil {
+				return fmt.Errorf("checkpoint format %d, this version reads %d (and the earlier single-document one)", f, checkpointFormat)
+			}
+			return d.restoreLegacy(b, &hasEng, &replayed)
+		}
+		if head := b.Get(keyEngineHead); head != nil {
+			hasEng = true
+			if err := d.eng.RestoreChunks(head, chunksOf(b, bktEngineSites)); err != nil {
+				return fmt.Errorf("%w (move state.db away to start detection afresh)", err)
+			}
+		}
+		var err error
+		replayed, err = d.com.RestoreChunks(chunksOf(b, bktQCSites), chunksOf(b, bktDupSites), d.saved.qc)
+		if err != nil {
+			return fmt.Errorf("restore quality control: %w", err)
+		}
 		return nil
 	})
+	if err == nil && !hasEng {
+		// No checkpoint yet: quality control still replays the spool.
+		replayed, err = d.com.Restore(nil, nil, d.saved.qc)
+		if err != nil {
+			err = fmt.Errorf("restore quality control: %w", err)
+		}
+	}
 	if err != nil {
 		return fmt.Errorf("daemon: read checkpoint: %w", err)
 	}
-	if engState != nil {
-		if err := d.eng.Restore(engState); err != nil {
-			return fmt.Errorf("daemon: %w (move state.db away to start detection afresh)", err)
-		}
-	}
-	replayed, err := d.com.Restore(qcState, dupState, d.saved.qc)
-	if err != nil {
-		return fmt.Errorf("daemon: restore quality control: %w", err)
-	}
 	d.fed = d.saved.eng
-	if engState != nil {
+	if hasEng {
 		if err := d.spool.SetCheckpoint(min(d.saved.eng, d.saved.qc)); err != nil {
 			return err
 		}
@@ -522,6 +580,47 @@ func (d *daemon) restore() error {
 	d.log.Info("state restored", "checkpoint_seq", d.saved.eng, "qc_seq", d.saved.qc, "qc_replayed", replayed,
 		"spool_last_seq", st.LastSeq, "spool_pending", st.Pending, "to_detect", st.LastSeq-min(st.LastSeq, d.fed))
 	return nil
+}
+
+// restoreLegacy reads a checkpoint of the single-document format (engine,
+// qc and dups keys).
+func (d *daemon) restoreLegacy(b *bolt.Bucket, hasEng *bool, replayed *int) error {
+	engState := b.Get(keyEngine)
+	if engState == nil {
+		return nil
+	}
+	*hasEng = true
+	if err := d.eng.Restore(engState); err != nil {
+		return fmt.Errorf("%w (move state.db away to start detection afresh)", err)
+	}
+	n, err := d.com.Restore(b.Get(keyQC), b.Get(keyDups), d.saved.qc)
+	if err != nil {
+		return fmt.Errorf("restore quality control: %w", err)
+	}
+	*replayed = n
+	d.log.Info("checkpoint of the single-document format read; the next checkpoint rewrites it per site")
+	return nil
+}
+
+// chunksOf yields the (site, chunk) pairs of the nested bucket name of b
+// (nothing when it does not exist). The chunks are valid during the
+// transaction only.
+func chunksOf(b *bolt.Bucket, name []byte) iter.Seq2[string, []byte] {
+	return func(yield func(string, []byte) bool) {
+		nb := b.Bucket(name)
+		if nb == nil {
+			return
+		}
+		c := nb.Cursor()
+		for k, v := c.First(); k != nil; k, v = c.Next() {
+			if v == nil {
+				continue // a nested bucket: not written by this version
+			}
+			if !yield(string(k), v) {
+				return
+			}
+		}
+	}
 }
 
 // onAir passes an air temperature from an air_topic subscription to the
@@ -671,12 +770,12 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 	timer := time.NewTimer(d.ckInt)
 	defer timer.Stop()
 	for {
-		if err := d.feedAll(); err != nil {
+		if err := d.feedAll(ctx); err != nil {
 			return err
 		}
 		select {
 		case <-ctx.Done():
-			if err := d.feedAll(); err != nil {
+			if err := d.feedAll(ctx); err != nil {
 				return err
 			}
 			d.checkpoint()
@@ -684,7 +783,7 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 		case <-d.feedWake:
 		case nc, ok := <-reload:
 			if ok {
-				if err := d.feedAll(); err != nil {
+				if err := d.feedAll(ctx); err != nil {
 					return err
 				}
 				d.reload(nc)
@@ -700,7 +799,7 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 				ext = nil
 			}
 		case <-timer.C:
-			if err := d.feedAll(); err != nil {
+			if err := d.feedAll(ctx); err != nil {
 				return err
 			}
 			took := d.checkpoint()
@@ -711,7 +810,7 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 
 // feedAll feeds every committed reading after d.fed and spools the derived
 // points, so that they are durable before any checkpoint includes them.
-func (d *daemon) feedAll() error {
+func (d *daemon) feedAll(ctx context.Context) error {
 	var sink ingest.ReadingSink = d.eng
 	var buf []ingest.Entry
 	for {
@@ -745,66 +844,134 @@ func (d *daemon) feedAll() error {
 		}
 		d.dm.fed.Add(float64(len(buf)))
 		if len(d.sink.lines) > 0 {
-			if err := d.spool.AppendLinesAfter(d.fed, d.sink.lines); err != nil {
-				return fmt.Errorf("daemon: spool derived points: %w", err)
+			if err := d.spoolDerived(ctx); err != nil {
+				return err
 			}
-			clear(d.sink.lines)
-			d.sink.lines = d.sink.lines[:0]
 		}
 	}
 }
 
+// spoolDerived appends the derived points of what was fed. A failure (the
+// storage disk full) is retried until it succeeds or the feed stops, as the
+// committer retries its commits: detection waits, nothing is dropped, and
+// since no checkpoint passes these readings until their points are spooled,
+// a restart derives the points again.
+func (d *daemon) spoolDerived(ctx context.Context) error {
+	for attempt := 0; ; attempt++ {
+		err := d.spool.AppendLinesAfter(d.fed, d.sink.lines)
+		if err == nil {
+			clear(d.sink.lines)
+			d.sink.lines = d.sink.lines[:0]
+			return nil
+		}
+		if attempt == 0 || attempt%20 == 0 {
+			d.log.Error("spooling derived points failed; detection waits and retries", "err", err, "points", len(d.sink.lines), "attempt", attempt+1)
+		}
+		select {
+		case <-ctx.Done():
+			return fmt.Errorf("daemon: spool derived points: %w", err)
+		case <-time.After(min(100*time.Millisecond<<min(attempt, 6), 5*time.Second)):
+		}
+	}
+}
+
+// state.db layout: the bucket "checkpoint" holds the sequence numbers, the
+// format, the time of the save and the engine's head (counters), and three
+// nested buckets the per-site state, one key per site id: the engine's
+// (detector and profile assembly), quality control's and the duplicate
+// memory's. Earlier versions kept each of the three in one document under
+// the keys engine, qc and dups (read by restoreLegacy).
 var (
-	bktCheckpoint = []byte("checkpoint")
-	keyEngine     = []byte("engine")
-	keyEngineSeq  = []byte("engine_seq")
-	keyQC         = []byte("qc")
-	keyDups       = []byte("dups")
-	keyQCSeq      = []byte("qc_seq")
-	keySaved      = []byte("saved_at")
+	bktCheckpoint  = []byte("checkpoint")
+	keyEngine      = []byte("engine") // single-document format
+	keyEngineSeq   = []byte("engine_seq")
+	keyQC          = []byte("qc")   // single-document format
+	keyDups        = []byte("dups") // single-document format
+	keyQCSeq       = []byte("qc_seq")
+	keySaved       = []byte("saved_at")
+	keyFormat      = []byte("format")
+	keyEngineHead  = []byte("engine_head")
+	bktEngineSites = []byte("engine_sites")
+	bktQCSites     = []byte("qc_sites")
+	bktDupSites    = []byte("dup_sites")
 )
 
-// checkpoint saves the engine snapshot (at d.fed) and the QC and duplicate
+// checkpointFormat is the value of the format key: per-site state.
+const checkpointFormat = 2
+
+// checkpoint saves the engine's state (at d.fed) and the QC and duplicate
 // memory (at their own, later or equal, sequence) in one transaction, then
-// lets the spool delete below the smaller of the two.
+// lets the spool delete below the smaller of the two. Only the sites whose
+// state changed since the last checkpoint are written (every site after
+// start or a failure), each encoded on its own, so the memory a checkpoint
+// needs is what those sites' state takes, not a copy of the whole state.
 func (d *daemon) checkpoint() time.Duration {
 	qcSeq := d.com.LastSeq()
 	if d.fed == d.saved.eng && qcSeq == d.saved.qc {
 		return 0
 	}
 	start := time.Now()
-	err := func() error {
-		eng, err := d.eng.Snapshot()
+	full := d.ckFull
+	var qseq uint64
+	var written, sites int
+	err := d.state.Update(func(tx *bolt.Tx) error {
+		b, err := tx.CreateBucketIfNotExists(bktCheckpoint)
 		if err != nil {
 			return err
 		}
-		qc, dups, qseq, err := d.com.Snapshot()
+		nested := make([]*bolt.Bucket, 3)
+		for i, name := range [][]byte{bktEngineSites, bktQCSites, bktDupSites} {
+			if full && b.Bucket(name) != nil {
+				// Rewritten whole: drop sites that are gone.
+				if err := b.DeleteBucket(name); err != nil {
+					return err
+				}
+			}
+			if nested[i], err = b.CreateBucketIfNotExists(name); err != nil {
+				return err
+			}
+		}
+		putIn := func(nb *bolt.Bucket) ingest.ChunkFunc {
+			return func(site string, chunk []byte) error {
+				written += len(chunk)
+				sites++
+				// bbolt keeps the slice until the commit: the caller reuses chunk.
+				return nb.Put([]byte(site), bytes.Clone(chunk))
+			}
+		}
+		head, err := d.eng.WriteStateChunks(full, putIn(nested[0]))
 		if err != nil {
+			return err
+		}
+		if qseq, err = d.com.WriteState(full, putIn(nested[1]), putIn(nested[2])); err != nil {
 			return err
 		}
 		if qseq < d.fed {
 			return fmt.Errorf("quality-control memory at %d is behind detection at %d", qseq, d.fed)
 		}
-		err = d.state.Update(func(tx *bolt.Tx) error {
-			b, err := tx.CreateBucketIfNotExists(bktCheckpoint)
-			if err != nil {
+		for _, k := range [][]byte{keyEngine, keyQC, keyDups} {
+			if err := b.Delete(k); err != nil {
 				return err
 			}
-			for _, kv := range [][2][]byte{{keyEngine, eng}, {keyEngineSeq, be64(d.fed)}, {keyQC, qc}, {keyDups, dups},
-				{keyQCSeq, be64(qseq)}, {keySaved, be64(uint64(time.Now().UnixNano()))}} {
-				if err := b.Put(kv[0], kv[1]); err != nil {
-					return err
-				}
-			}
-			return nil
-		})
-		if err != nil {
-			return fmt.Errorf("state.db: %w", err)
 		}
+		for _, kv := range [][2][]byte{{keyEngineHead, head}, {keyEngineSeq, be64(d.fed)}, {keyQCSeq, be64(qseq)},
+			{keyFormat, be64(checkpointFormat)}, {keySaved, be64(uint64(time.Now().UnixNano()))}} {
+			if err := b.Put(kv[0], kv[1]); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err == nil {
 		d.saved.eng, d.saved.qc = d.fed, qseq
-		d.savedBytes = len(eng) + len(qc) + len(dups)
-		return d.spool.SetCheckpoint(min(d.fed, qseq))
-	}()
+		d.savedBytes = written
+		d.ckFull = false
+		err = d.spool.SetCheckpoint(min(d.fed, qseq))
+	} else {
+		// The change records were reset: the next checkpoint writes everything.
+		d.ckFull = true
+		err = fmt.Errorf("state.db: %w", err)
+	}
 	if err != nil {
 		d.dm.checkpointErrors.Inc()
 		d.log.Error("checkpoint failed; the previous one stays valid", "err", err)
@@ -813,7 +980,9 @@ func (d *daemon) checkpoint() time.Duration {
 	took := time.Since(start)
 	d.dm.checkpoints.Inc()
 	d.dm.checkpointDur.Observe(took.Seconds())
-	d.log.Debug("checkpoint saved", "seq", d.fed, "qc_seq", d.saved.qc, "took", took, "bytes", d.savedBytes)
+	d.dm.checkpointBytes.Set(float64(d.savedBytes))
+	d.log.Debug("checkpoint saved", "seq", d.fed, "qc_seq", d.saved.qc, "took", took, "bytes", d.savedBytes,
+		"chunks", sites, "full", full)
 	return took
 }
 
@@ -837,9 +1006,6 @@ func (s *engineSink) Column(c detect.Column, p detect.Profile) {
 	if s.d.store != nil {
 		s.d.store.ObserveColumn(c, p)
 	}
-	if s.d.o.Tap != nil {
-		s.d.o.Tap.Column(c, p)
-	}
 }
 
 func (s *engineSink) Event(e detect.Event) {
@@ -856,9 +1022,6 @@ func (s *engineSink) Event(e detect.Event) {
 	if err := s.d.dispatcher().Submit(e); err != nil {
 		s.d.dm.submitErrors.Inc()
 		s.d.log.Error("alert outbox refused an event", "site", e.Site, "kind", string(e.Kind), "err", err)
-	}
-	if s.d.o.Tap != nil {
-		s.d.o.Tap.Event(e)
 	}
 }
 
@@ -1037,11 +1200,4 @@ func u64(b []byte) uint64 {
 		return 0
 	}
 	return binary.BigEndian.Uint64(b)
-}
-
-func clone(b []byte) []byte {
-	if b == nil {
-		return nil
-	}
-	return append([]byte(nil), b...)
 }

@@ -7,8 +7,10 @@
 package engine
 
 import (
+	"encoding/binary"
 	"encoding/json"
 	"fmt"
+	"iter"
 	"math"
 	"slices"
 	"sort"
@@ -56,6 +58,13 @@ type Engine struct {
 	sites    map[string]*site
 	emitFn   func(detect.Profile)
 	stats    Stats
+
+	// Change record for WriteStateChunks: the sites whose detector or
+	// assembly state changed since the last call, or all of them.
+	dirty     map[string]struct{}
+	allDirty  bool
+	lastDirty string // the site recorded last (consecutive readings share a site)
+	hasDirty  bool
 }
 
 // site is one site's detector.
@@ -83,6 +92,7 @@ func New(cfg *config.Config, sink Sink) (*Engine, error) {
 		names:    make(map[string]string, 2*len(cfg.Sites)),
 		resolved: make(map[string]string),
 		sites:    make(map[string]*site),
+		allDirty: true,
 	}
 	expected := make(map[string][]float64, len(cfg.Sites))
 	for _, s := range cfg.Sites {
@@ -157,6 +167,7 @@ func (e *Engine) Add(r ingest.Reading) (late bool) {
 		return false
 	}
 	r.Site = e.Resolve(r.Site)
+	e.touch(r.Site)
 	late = e.asm.Add(r, e.emitFn)
 	if late {
 		e.stats.Late++
@@ -180,21 +191,31 @@ func (e *Engine) AddAir(siteName string, t time.Time, c float64) {
 		e.sites[id] = s
 	}
 	e.stats.Air++
+	e.touch(id)
 	s.det.ObserveAir(t.UTC(), c)
 }
 
 // Flush emits and detects every open profile, as at the end of the input.
-func (e *Engine) Flush() { e.asm.Flush(e.emitFn) }
+func (e *Engine) Flush() {
+	e.allDirty = true
+	e.asm.Flush(e.emitFn)
+}
 
 // Stats returns the counters.
 func (e *Engine) Stats() Stats { return e.stats }
 
-// Assembler exposes the assembler (open intervals, known depths).
-func (e *Engine) Assembler() *ingest.Assembler { return e.asm }
+// Assembler exposes the assembler (open intervals, known depths). Changes
+// made through it are not tracked site by site: the next WriteStateChunks
+// saves every site.
+func (e *Engine) Assembler() *ingest.Assembler {
+	e.allDirty = true
+	return e.asm
+}
 
 // profile detects one assembled profile.
 func (e *Engine) profile(p detect.Profile) {
 	s := e.siteFor(p)
+	e.touch(p.Site)
 	e.stats.Profiles++
 	col, evs := s.det.Process(p)
 	e.sink.Column(col, p)
@@ -386,6 +407,7 @@ func (e *Engine) Restore(b []byte) error {
 	}
 	e.sites = sites
 	e.stats = sn.Stats
+	e.dirty, e.allDirty, e.hasDirty = nil, true, false
 	return nil
 }
 
@@ -397,4 +419,162 @@ func (e *Engine) ConfiguredSites() []string {
 	}
 	slices.Sort(ids)
 	return ids
+}
+
+// touch records that a site's detector or assembly state changed.
+func (e *Engine) touch(id string) {
+	if e.allDirty || (e.hasDirty && id == e.lastDirty) {
+		return
+	}
+	if e.dirty == nil {
+		e.dirty = make(map[string]struct{})
+	}
+	e.dirty[id] = struct{}{}
+	e.lastDirty, e.hasDirty = id, true
+}
+
+// chunkHead is the JSON form of the head that WriteStateChunks returns.
+type chunkHead struct {
+	Version    int   `json:"version"`
+	IntervalNS int64 `json:"interval_ns"` // the assembler's profile interval
+	Stats      Stats `json:"stats"`
+}
+
+// Per-site chunk layout (WriteStateChunks): version byte, flag byte, the
+// maximum depth (float64 bits, little endian), the detector state's length
+// (uvarint) and the detector state (detect.Site.MarshalState), then the
+// assembly state (ingest.Assembler.AppendSiteState) to the end.
+const chunkVersion = 2
+
+// Flags of a per-site chunk.
+const (
+	chunkFromData = 1 << iota
+	chunkHasDet
+	chunkHasAsm
+)
+
+// WriteStateChunks saves the detection state in pieces: put is called once
+// per site whose detector or assembly state changed since the previous call
+// (every site with all set, and after New, Restore, RestoreChunks, Flush or
+// Assembler), sites in ascending order; head, returned at the end, holds the
+// counters and the profile interval and must be saved with the chunks.
+// Together with the chunks of earlier calls for the other sites it is the
+// whole state (RestoreChunks). The change record is reset at the start: after
+// a failed save call it again with all set. Only one site's encoded state is
+// held at a time (chunk is reused between calls).
+func (e *Engine) WriteStateChunks(all bool, put ingest.ChunkFunc) (head []byte, err error) {
+	all = all || e.allDirty
+	dirty := e.dirty
+	e.dirty, e.allDirty, e.hasDirty = nil, false, false
+	var ids []string
+	if all {
+		seen := make(map[string]struct{}, len(e.sites))
+		for id := range e.sites {
+			seen[id] = struct{}{}
+		}
+		for _, id := range e.asm.Sites() {
+			seen[id] = struct{}{}
+		}
+		for id := range seen {
+			ids = append(ids, id)
+		}
+	} else {
+		for id := range dirty {
+			ids = append(ids, id)
+		}
+	}
+	slices.Sort(ids)
+	var buf []byte
+	for _, id := range ids {
+		buf = append(buf[:0], chunkVersion, 0)
+		var flags byte
+		maxDepth := 0.0
+		var det []byte
+		if s := e.sites[id]; s != nil {
+			if det, err = s.det.MarshalState(); err != nil {
+				return nil, fmt.Errorf("engine state: site %q: %w", id, err)
+			}
+			flags |= chunkHasDet
+			if s.fromData {
+				flags |= chunkFromData
+			}
+			maxDepth = s.cfg.MaxDepth
+		}
+		buf = binary.LittleEndian.AppendUint64(buf, math.Float64bits(maxDepth))
+		buf = binary.AppendUvarint(buf, uint64(len(det)))
+		buf = append(buf, det...)
+		var ok bool
+		if buf, ok, err = e.asm.AppendSiteState(buf, id); err != nil {
+			return nil, fmt.Errorf("engine state: %w", err)
+		}
+		if ok {
+			flags |= chunkHasAsm
+		}
+		if flags&(chunkHasDet|chunkHasAsm) == 0 {
+			continue // touched but holds nothing (e.g. only unusable readings)
+		}
+		buf[1] = flags
+		if err := put(id, buf); err != nil {
+			return nil, fmt.Errorf("engine state: site %q: %w", id, err)
+		}
+	}
+	head, err = json.Marshal(chunkHead{Version: chunkVersion, IntervalNS: int64(e.asm.Interval()), Stats: e.stats})
+	if err != nil {
+		return nil, fmt.Errorf("engine state: %w", err)
+	}
+	return head, nil
+}
+
+// RestoreChunks replaces the detection state with one saved by
+// WriteStateChunks: head and every site's latest chunk (site id → chunk; the
+// slices are not retained). Sites are recreated as Restore does. On error the
+// state is left unchanged.
+func (e *Engine) RestoreChunks(head []byte, chunks iter.Seq2[string, []byte]) error {
+	var h chunkHead
+	if err := json.Unmarshal(head, &h); err != nil {
+		return fmt.Errorf("engine restore: head: %w", err)
+	}
+	if h.Version != chunkVersion {
+		return fmt.Errorf("engine restore: state version %d, want %d", h.Version, chunkVersion)
+	}
+	sites := make(map[string]*site)
+	asm := make(map[string][]byte)
+	for id, b := range chunks {
+		if len(b) < 10 || b[0] != chunkVersion {
+			return fmt.Errorf("engine restore: site %q: chunk version or length wrong", id)
+		}
+		flags := b[1]
+		maxDepth := math.Float64frombits(binary.LittleEndian.Uint64(b[2:10]))
+		n, k := binary.Uvarint(b[10:])
+		if k <= 0 || n > uint64(len(b)-10-k) {
+			return fmt.Errorf("engine restore: site %q: corrupt chunk", id)
+		}
+		det := b[10+k : 10+k+int(n)]
+		rest := b[10+k+int(n):]
+		if flags&chunkHasDet != 0 {
+			var s *site
+			if sc, ok := e.conf[id]; ok {
+				s = &site{det: detect.NewSite(sc), cfg: sc}
+			} else {
+				if math.IsNaN(maxDepth) || maxDepth < 0 {
+					return fmt.Errorf("engine restore: site %q: max depth %g", id, maxDepth)
+				}
+				s = e.dataSite(id, maxDepth, nil)
+			}
+			if err := s.det.RestoreState(det); err != nil {
+				return fmt.Errorf("engine restore: site %q: %w", id, err)
+			}
+			sites[id] = s
+		}
+		if flags&chunkHasAsm != 0 {
+			asm[id] = rest
+		}
+	}
+	if err := e.asm.RestoreSites(h.IntervalNS, asm); err != nil {
+		return fmt.Errorf("engine restore: %w", err)
+	}
+	e.sites = sites
+	e.stats = h.Stats
+	e.dirty, e.allDirty, e.hasDirty = nil, true, false
+	return nil
 }
