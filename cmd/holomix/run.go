@@ -25,9 +25,9 @@ acknowledged, detection state is saved) and exits 0. SIGHUP reloads the
 file: detector thresholds, alert receivers and the log level apply at once,
 other changes are logged as needing a restart.
 
-Memory: the Go runtime grows its heap to about twice the live data. To hold
-the process under a budget set GOMEMLIMIT (e.g. GOMEMLIMIT=120MiB for 1,000
-sites of 30 sensors).`
+Memory: the daemon sets a soft memory limit of storage.memory_limit (default
+128MiB, enough for 1,000 sites of 30 sensors; 0 means none). The GOMEMLIMIT
+environment variable, when set, takes precedence.`
 
 func runDaemon(ctx context.Context, e *env, args []string) int {
 	fs := flag.NewFlagSet("run", flag.ContinueOnError)
