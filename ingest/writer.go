@@ -11,6 +11,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"syscall"
 	"time"
 
 	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
@@ -186,16 +187,33 @@ func (w *Writer) setReachable(ok bool, err error) {
 }
 
 // Run writes until ctx ends. It returns nil on cancellation and an error only
-// when the spool fails.
+// when the spool fails; a full storage disk (ENOSPC, EDQUOT) is not a
+// failure: the step is retried after a pause until space returns (a batch
+// written but not yet marked is written again; its points overwrite
+// themselves in the database).
 func (w *Writer) Run(ctx context.Context) error {
 	idle := time.NewTimer(time.Second)
 	defer idle.Stop()
 	lastPing := time.Time{}
+	full := 0
 	for {
 		n, err := w.step(ctx, true)
 		if ctx.Err() != nil {
 			return nil
 		}
+		if err != nil && (errors.Is(err, syscall.ENOSPC) || errors.Is(err, syscall.EDQUOT)) {
+			if full == 0 || full%20 == 0 {
+				w.log.Error("storage disk full: the database writer waits for space", "err", err, "attempt", full+1)
+			}
+			select {
+			case <-ctx.Done():
+				return nil
+			case <-time.After(min(100*time.Millisecond<<min(full, 6), 5*time.Second)):
+			}
+			full++
+			continue
+		}
+		full = 0
 		if err != nil {
 			return err
 		}

@@ -44,6 +44,7 @@ type bare struct {
 	broker, clientID, filter string
 	profile                  bool
 	influxURL, bucket        string
+	batch                    int // points per write request (0: 5000)
 
 	handled atomic.Int64 // readings handed to the write API
 	bad     atomic.Int64 // payloads that did not decode
@@ -73,7 +74,11 @@ func (b *bare) createSession() error {
 
 // start connects the pipeline; the broker starts delivering the queue.
 func (b *bare) start() error {
-	b.ic = influxdb2.NewClientWithOptions(b.influxURL, ":", influxdb2.DefaultOptions().SetBatchSize(5000).SetFlushInterval(100))
+	batch := uint(5000)
+	if b.batch > 0 {
+		batch = uint(b.batch)
+	}
+	b.ic = influxdb2.NewClientWithOptions(b.influxURL, ":", influxdb2.DefaultOptions().SetBatchSize(batch).SetFlushInterval(100))
 	wapi := b.ic.WriteAPI("", b.bucket)
 	go func() {
 		for range wapi.Errors() {

@@ -27,6 +27,7 @@ import (
 	"io"
 	"log/slog"
 	"math"
+	"net/http"
 	"os"
 	"os/exec"
 	"os/signal"
@@ -56,6 +57,7 @@ type options struct {
 	replay      bool
 	parts       map[string]bool
 	latencyRate float64 // msgs/s when the throughput part is skipped
+	batch       int     // influx.batch_size of B (0: the default, 5000)
 }
 
 func main() {
@@ -71,6 +73,7 @@ func main() {
 	flag.IntVar(&o.rssSites, "rss-sites", 1000, "sites for the memory measurement")
 	flag.IntVar(&o.rssDepths, "rss-depths", 30, "depths per site for the memory measurement")
 	flag.IntVar(&o.rssSteps, "rss-steps", 24, "profiles per site for the memory measurement")
+	flag.IntVar(&o.batch, "batch", 0, "influx.batch_size for holomix (0: its default, 5000); also the bare pipeline's batch size when set")
 	flag.StringVar(&parts, "parts", "throughput,latency,rss,pprof,replay", "parts to run (pprof: CPU profiles of B in-process)")
 	flag.Parse()
 	o.parts = map[string]bool{}
@@ -367,7 +370,7 @@ func (b *bench) runA(ctx context.Context, mq *testenv.Mosquitto, w workload, inf
 	}
 	defer b.dropDB(db)
 	p := &bare{broker: mq.URL, clientID: "bench-bare-" + db, filter: w.filter, profile: w.format == "json-profile",
-		influxURL: b.in.URL, bucket: db + "/autogen"}
+		influxURL: b.in.URL, bucket: db + "/autogen", batch: b.o.batch}
 	if err := p.createSession(); err != nil {
 		return result{}, err
 	}
@@ -403,7 +406,7 @@ func (b *bench) daemonFor(mq *testenv.Mosquitto, name, db string, w workload) (*
 	}
 	cfg := rig.DaemonConfig{Broker: mq.URL, ClientID: "holomix-bench-" + db,
 		Subscriptions: []rig.Subscription{{Topic: w.filter, Format: w.format, Template: w.template}},
-		InfluxURL:     b.in.URL, Bucket: db + "/autogen", Dir: filepath.Join(dir, "data"), Sites: rig.SitesOf(w.stream),
+		InfluxURL:     b.in.URL, Bucket: db + "/autogen", InfluxBatchSize: b.o.batch, Dir: filepath.Join(dir, "data"), Sites: rig.SitesOf(w.stream),
 		HookURL: b.hook.URL(), HookSecretEnv: "HOLOMIX_BENCH_HOOK_SECRET", HTTPListen: fmt.Sprintf("127.0.0.1:%d", port)}
 	path := filepath.Join(dir, "holomix.yaml")
 	if err := os.WriteFile(path, []byte(cfg.YAML()), 0o600); err != nil {
@@ -568,6 +571,9 @@ func (b *bench) latency(ctx context.Context) error {
 		return err
 	}
 	m, _ := d.Metrics()
+	if raw, err := scrapeRaw("http://" + d.HTTPAddr + "/metrics"); err == nil {
+		_ = os.WriteFile(filepath.Join(b.out, "latency-metrics.txt"), raw, 0o644)
+	}
 	if code, took, err := d.Term(10 * time.Second); err != nil || code != 0 {
 		return fmt.Errorf("stop: exit %d after %v: %v", code, took, err)
 	}
@@ -576,7 +582,18 @@ func (b *bench) latency(ctx context.Context) error {
 	mu.Unlock()
 	sort.Slice(samples, func(i, j int) bool { return samples[i] < samples[j] })
 	lr := latencyResult{rateMsgs: rate, rateReadings: rate * 24, seconds: pubSecs, expected: len(firings), samples: samples,
-		achieved: float64(len(w.msgs)) / pubSecs, internalP: m}
+		achieved: float64(len(w.msgs)) / pubSecs}
+	// Where a slow alert can have waited: spool commits and detection
+	// checkpoints over 128 ms, outbox-to-receiver deliveries over 100 ms.
+	for _, h := range []struct{ label, name, le string }{
+		{"spool commits > 128 ms", "holomix_spool_commit_duration_seconds", "0.128"},
+		{"checkpoints > 128 ms", "holomix_checkpoint_duration_seconds", "0.128"},
+		{"outbox → receiver > 100 ms", "holomix_alert_delivery_latency_seconds", "0.1"},
+		{"database writes > 128 ms", "holomix_influx_write_duration_seconds", "0.128"},
+	} {
+		a, t := slow(m, h.name, h.le)
+		lr.slow = append(lr.slow, fmt.Sprintf("%s: %.0f of %.0f", h.label, a, t))
+	}
 	b.report.latency = &lr
 	raw, _ := json.Marshal(map[string]any{"rate_msgs_per_s": rate, "achieved_msgs_per_s": lr.achieved, "expected_firings": len(firings),
 		"latencies_ms": durationsMS(samples)})
@@ -647,18 +664,21 @@ func (b *bench) memory(ctx context.Context) error {
 		return err
 	}
 	defer d.Kill()
-	var peak float64
+	var peak, peakAnon, fileAtPeak float64
 	stopSample := make(chan struct{})
 	sampled := make(chan struct{})
-	go func() { // VmHWM is the kernel's own peak; sampling only keeps the log informative
+	go func() { // VmHWM is the kernel's own peak; the samples split it into anonymous and file-backed memory
 		defer close(sampled)
 		for {
 			select {
 			case <-stopSample:
 				return
-			case <-time.After(200 * time.Millisecond):
-				if _, hwm, err := rig.ProcMemory(d.PID()); err == nil {
-					peak = max(peak, hwm)
+			case <-time.After(100 * time.Millisecond):
+				if pm, err := rig.ProcMem(d.PID()); err == nil {
+					peak = max(peak, pm.HWM)
+					if pm.Anon > peakAnon {
+						peakAnon, fileAtPeak = pm.Anon, pm.File
+					}
 				}
 			}
 		}
@@ -676,12 +696,13 @@ func (b *bench) memory(ctx context.Context) error {
 	}
 	close(stopSample)
 	<-sampled
-	rss, hwm, err := rig.ProcMemory(d.PID())
+	pm, err := rig.ProcMem(d.PID())
 	if err != nil {
 		return err
 	}
 	m, _ := d.Metrics()
-	mr := memoryResult{sites: s.Sites, depths: len(s.Depths), readings: w.readings, rss: rss, hwm: max(hwm, peak),
+	mr := memoryResult{sites: s.Sites, depths: len(s.Depths), readings: w.readings, rss: pm.RSS, hwm: max(pm.HWM, peak),
+		anonPeak: peakAnon, fileAtAnonPeak: fileAtPeak, anonEnd: pm.Anon, fileEnd: pm.File, goLimit: m["go_gc_gomemlimit_bytes"] / (1 << 20),
 		seconds: end.Sub(start).Seconds(), heapMiB: m["go_memstats_heap_inuse_bytes"] / (1 << 20),
 		checkpointMS: 1000 * m["holomix_checkpoint_duration_seconds_sum"] / math.Max(1, m["holomix_checkpoint_duration_seconds_count"])}
 	b.report.memory = &mr
@@ -707,3 +728,30 @@ func (b *bench) replay(ctx context.Context, root string) error {
 }
 
 func freePort() (int, error) { return rig.FreePort() }
+
+func scrapeRaw(url string) ([]byte, error) {
+	resp, err := http.Get(url)
+	if err != nil {
+		return nil, err
+	}
+	defer resp.Body.Close()
+	return io.ReadAll(resp.Body)
+}
+
+// slow counts the observations of a histogram above the bucket bound le
+// (labels other than le summed): above, total.
+func slow(m map[string]float64, name, le string) (float64, float64) {
+	var above, total float64
+	for k, v := range m {
+		if !strings.HasPrefix(k, name+"_bucket{") {
+			continue
+		}
+		if strings.Contains(k, `le="+Inf"`) {
+			total += v
+		}
+		if strings.Contains(k, `le="`+le+`"`) {
+			above -= v
+		}
+	}
+	return above + total, total
+}

@@ -106,12 +106,15 @@ type latencyResult struct {
 	seconds                float64
 	expected               int
 	samples                []time.Duration
-	internalP              map[string]float64
+	slow                   []string // histogram tails from the daemon's /metrics
 }
 
 type memoryResult struct {
-	sites, depths, readings int
-	rss, hwm, heapMiB       float64
+	sites, depths, readings  int
+	rss, hwm, heapMiB        float64
+	anonPeak, fileAtAnonPeak float64 // RssAnon at its sampled peak, RssFile then
+	anonEnd, fileEnd         float64
+	goLimit                  float64 // GOMEMLIMIT in effect (MiB), from /metrics
 	seconds                 float64
 	checkpointMS            float64
 }
@@ -267,12 +270,17 @@ func (r *report) markdown() string {
 			thousands(l.rateMsgs), thousands(l.rateReadings), thousands(l.achieved), len(l.samples), l.expected,
 			ms(pct(l.samples, 0.5)), ms(pct(l.samples, 0.99)), ms(pct(l.samples, 1)),
 			verdict(len(l.samples) > 0 && len(l.samples) >= l.expected && pct(l.samples, 0.99) < 500*time.Millisecond))
+		if len(l.slow) > 0 {
+			b.WriteString("During that run (daemon /metrics): " + strings.Join(l.slow, "; ") + ".\n\n")
+		}
 	}
 	if mm := r.memory; mm != nil {
-		b.WriteString("### Memory of the daemon\n\n| sites × depths | readings drained | drain readings/s | peak RSS (VmHWM) | RSS after | Go heap in use | checkpoint avg | target |\n|---|---|---|---|---|---|---|---|\n")
-		fmt.Fprintf(&b, "| %s × %d | %s | %s | %.1f MiB | %.1f MiB | %.1f MiB | %.0f ms | < 150 MB (143 MiB): %s |\n\n",
+		b.WriteString("### Memory of the daemon\n\n| sites × depths | readings drained | drain readings/s | peak RSS (VmHWM) | peak anonymous (RssAnon; RssFile then) | RSS after (anon + file) | Go heap in use | GOMEMLIMIT | checkpoint avg | target |\n|---|---|---|---|---|---|---|---|---|---|\n")
+		fmt.Fprintf(&b, "| %s × %d | %s | %s | %.1f MiB | %.1f MiB (%.1f MiB) | %.1f MiB (%.1f + %.1f) | %.1f MiB | %.0f MiB | %.0f ms | < 150 MB (143 MiB): %s |\n\n",
 			thousands(float64(mm.sites)), mm.depths, thousands(float64(mm.readings)), thousands(float64(mm.readings)/mm.seconds),
-			mm.hwm, mm.rss, mm.heapMiB, mm.checkpointMS, verdict(mm.hwm*(1<<20) < 150e6))
+			mm.hwm, mm.anonPeak, mm.fileAtAnonPeak, mm.rss, mm.anonEnd, mm.fileEnd, mm.heapMiB, mm.goLimit, mm.checkpointMS,
+			verdict(mm.hwm*(1<<20) < 150e6))
+		b.WriteString("RssFile is pages of the memory-mapped bbolt files (spool, state) resident in the page cache: they count in VmHWM but the kernel can drop them under memory pressure; RssAnon is the process's own memory.\n\n")
 	}
 	if r.replay != "" {
 		b.WriteString("### Replay of the year-long file (deploy/bench-replay.sh)\n\n```\n" + r.replay + "\n```\n\n")

@@ -33,6 +33,7 @@ import (
 	"runtime/debug"
 	"strings"
 	"sync"
+	"syscall"
 	"time"
 
 	"github.com/influxdata/influxdb-client-go/v2/api/write"
@@ -851,11 +852,11 @@ func (d *daemon) feedAll(ctx context.Context) error {
 	}
 }
 
-// spoolDerived appends the derived points of what was fed. A failure (the
-// storage disk full) is retried until it succeeds or the feed stops, as the
-// committer retries its commits: detection waits, nothing is dropped, and
+// spoolDerived appends the derived points of what was fed. A full storage
+// disk (ENOSPC, EDQUOT) is retried until space returns or the feed stops, as
+// the committer retries its commits: detection waits, nothing is dropped, and
 // since no checkpoint passes these readings until their points are spooled,
-// a restart derives the points again.
+// a restart derives the points again. Other errors stop the daemon.
 func (d *daemon) spoolDerived(ctx context.Context) error {
 	for attempt := 0; ; attempt++ {
 		err := d.spool.AppendLinesAfter(d.fed, d.sink.lines)
@@ -864,8 +865,11 @@ func (d *daemon) spoolDerived(ctx context.Context) error {
 			d.sink.lines = d.sink.lines[:0]
 			return nil
 		}
+		if !errors.Is(err, syscall.ENOSPC) && !errors.Is(err, syscall.EDQUOT) {
+			return fmt.Errorf("daemon: spool derived points: %w", err)
+		}
 		if attempt == 0 || attempt%20 == 0 {
-			d.log.Error("spooling derived points failed; detection waits and retries", "err", err, "points", len(d.sink.lines), "attempt", attempt+1)
+			d.log.Error("storage disk full: detection waits until its derived points can be spooled", "err", err, "points", len(d.sink.lines), "attempt", attempt+1)
 		}
 		select {
 		case <-ctx.Done():

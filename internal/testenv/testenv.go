@@ -77,6 +77,15 @@ type process struct {
 func (p *process) start() error {
 	p.mu.Lock()
 	defer p.mu.Unlock()
+	if p.cmd != nil {
+		select {
+		case <-p.done: // exited on its own: start it again
+		default:
+			// A second process would fail to bind and leave the first one
+			// running with nobody to stop it.
+			return fmt.Errorf("%s is already running (pid %d)", p.name, p.cmd.Process.Pid)
+		}
+	}
 	f, err := os.OpenFile(p.log, os.O_CREATE|os.O_WRONLY|os.O_APPEND, 0o644)
 	if err != nil {
 		return fmt.Errorf("open %s log: %w", p.name, err)
@@ -121,7 +130,12 @@ func (p *process) pid() int {
 	if p.cmd == nil || p.cmd.Process == nil {
 		return 0
 	}
-	return p.cmd.Process.Pid
+	select {
+	case <-p.done:
+		return 0 // exited
+	default:
+		return p.cmd.Process.Pid
+	}
 }
 
 func (p *process) tail() string {

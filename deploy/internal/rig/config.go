@@ -27,6 +27,7 @@ type DaemonConfig struct {
 	Subscriptions    []Subscription
 	InfluxURL        string
 	Bucket           string
+	InfluxBatchSize  int    // influx.batch_size; 0: default (5000)
 	Dir              string // storage.dir
 	SpoolMaxBytes    string // e.g. "1MiB"; "": default
 	MaxPayloadBytes  int    // 0: default
@@ -57,6 +58,9 @@ func (c DaemonConfig) YAML() string {
 	}
 	if c.InfluxURL != "" {
 		fmt.Fprintf(&b, "influx:\n  url: %s\n  bucket: %s\n", c.InfluxURL, c.Bucket)
+		if c.InfluxBatchSize > 0 {
+			fmt.Fprintf(&b, "  batch_size: %d\n", c.InfluxBatchSize)
+		}
 	}
 	fmt.Fprintf(&b, "storage:\n  dir: %s\n", c.Dir)
 	if c.SpoolMaxBytes != "" {

@@ -256,12 +256,18 @@ func ScrapeMetrics(url string) (map[string]float64, error) {
 	return out, sc.Err()
 }
 
-// ProcMemory returns a process's resident set size and its peak (VmRSS,
-// VmHWM from /proc/PID/status) in MiB.
-func ProcMemory(pid int) (rss, hwm float64, err error) {
+// Mem is a process's memory from /proc/PID/status, in MiB.
+type Mem struct {
+	RSS, HWM        float64 // VmRSS, VmHWM (peak)
+	Anon, File, Shm float64 // RssAnon, RssFile (mapped files, e.g. bbolt), RssShmem
+}
+
+// ProcMem reads /proc/PID/status.
+func ProcMem(pid int) (Mem, error) {
+	var m Mem
 	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/status", pid))
 	if err != nil {
-		return 0, 0, err
+		return m, err
 	}
 	for _, l := range strings.Split(string(b), "\n") {
 		f := strings.Fields(l)
@@ -269,12 +275,26 @@ func ProcMemory(pid int) (rss, hwm float64, err error) {
 			continue
 		}
 		v, _ := strconv.ParseFloat(f[1], 64)
+		v /= 1024
 		switch f[0] {
 		case "VmRSS:":
-			rss = v / 1024
+			m.RSS = v
 		case "VmHWM:":
-			hwm = v / 1024
+			m.HWM = v
+		case "RssAnon:":
+			m.Anon = v
+		case "RssFile:":
+			m.File = v
+		case "RssShmem:":
+			m.Shm = v
 		}
 	}
-	return rss, hwm, nil
+	return m, nil
+}
+
+// ProcMemory returns a process's resident set size and its peak (VmRSS,
+// VmHWM from /proc/PID/status) in MiB.
+func ProcMemory(pid int) (rss, hwm float64, err error) {
+	m, err := ProcMem(pid)
+	return m.RSS, m.HWM, err
 }
