@@ -115,8 +115,8 @@ type memoryResult struct {
 	anonPeak, fileAtAnonPeak float64 // RssAnon at its sampled peak, RssFile then
 	anonEnd, fileEnd         float64
 	goLimit                  float64 // GOMEMLIMIT in effect (MiB), from /metrics
-	seconds                 float64
-	checkpointMS            float64
+	seconds                  float64
+	checkpointMS             float64
 }
 
 type report struct {
