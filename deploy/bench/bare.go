@@ -1,9 +1,13 @@
 package main
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"fmt"
+	"io"
+	"net/http"
+	"net/url"
 	"strconv"
 	"strings"
 	"sync/atomic"
@@ -159,4 +163,52 @@ func countOnly(ctx context.Context, broker, clientID, filter string, msgs int, p
 		time.Sleep(2 * time.Millisecond)
 	}
 	return float64(msgs) / time.Since(start).Seconds(), nil
+}
+
+// lineProtocol renders a workload's readings as the daemon would store them
+// (measurement, tags depth_m and site, fields qc and temp_c, time in s).
+func lineProtocol(w workload) [][]byte {
+	s := w.stream
+	steps := w.readings / (s.Sites * len(s.Depths))
+	out := make([][]byte, 0, w.readings)
+	for k := 0; k < steps; k++ {
+		ts := strconv.FormatInt(s.Time(k).Unix(), 10)
+		for i := 0; i < s.Sites; i++ {
+			for d, z := range s.Depths {
+				out = append(out, fmt.Appendf(nil, "water_temperature,depth_m=%s,site=%s qc=0i,temp_c=%s %s",
+					strconv.FormatFloat(z, 'f', -1, 64), s.SiteID(i), strconv.FormatFloat(s.Temp(i, d, k), 'f', -1, 64), ts))
+			}
+		}
+	}
+	return out
+}
+
+// directWrite is the database's own ceiling: pre-rendered line protocol
+// POSTed to the v2 write endpoint in sequential requests of batch points,
+// no broker, no decoding.
+func directWrite(ctx context.Context, influxURL, bucket string, lines [][]byte, batch int) error {
+	u := influxURL + "/api/v2/write?precision=s&bucket=" + url.QueryEscape(bucket)
+	var body bytes.Buffer
+	for i := 0; i < len(lines); i += batch {
+		body.Reset()
+		for _, l := range lines[i:min(i+batch, len(lines))] {
+			body.Write(l)
+			body.WriteByte('\n')
+		}
+		req, err := http.NewRequestWithContext(ctx, http.MethodPost, u, bytes.NewReader(body.Bytes()))
+		if err != nil {
+			return err
+		}
+		req.Header.Set("Content-Type", "text/plain; charset=utf-8")
+		resp, err := http.DefaultClient.Do(req)
+		if err != nil {
+			return err
+		}
+		_, _ = io.Copy(io.Discard, resp.Body)
+		resp.Body.Close()
+		if resp.StatusCode/100 != 2 {
+			return fmt.Errorf("write: HTTP %d", resp.StatusCode)
+		}
+	}
+	return nil
 }

@@ -64,7 +64,7 @@ func main() {
 	var o options
 	var inflights, parts string
 	flag.StringVar(&o.out, "out", "", "directory for raw outputs (default bench-out/DATE-TIME under the repository)")
-	flag.IntVar(&o.rounds, "rounds", 3, "A/B rounds per workload and broker setting")
+	flag.IntVar(&o.rounds, "rounds", 5, "A/B rounds per workload and broker setting")
 	flag.IntVar(&o.single, "single", 120000, "readings per round with one reading per message (100 sites × 24 depths)")
 	flag.IntVar(&o.profile, "profile", 240000, "readings per round with one 24-depth profile per message (100 sites)")
 	flag.StringVar(&inflights, "inflight", "20,1000", "broker max_inflight_messages settings to run (20 is Mosquitto's default, 1000 what deploy/mosquitto.conf recommends)")
@@ -151,6 +151,10 @@ func run(ctx context.Context, o options) error {
 	defer logf.Close()
 	b := &bench{o: o, out: out, log: slog.New(slog.NewTextHandler(io.MultiWriter(os.Stderr, logf), nil))}
 	b.report.started = time.Now()
+	b.report.batch = 5000
+	if o.batch > 0 {
+		b.report.batch = o.batch
+	}
 	b.report.machine = describeMachine(root)
 	b.report.commands = append(b.report.commands, "deploy/bench.sh "+strings.Join(os.Args[1:], " "))
 	b.log.Info("machine", "description", b.report.machine.oneLine())
@@ -295,6 +299,31 @@ func prequeue(ctx context.Context, broker string, id string, msgs []rig.Msg) (fl
 func (b *bench) throughput(ctx context.Context) error {
 	t0 := time.Now().UTC().Add(-60 * 24 * time.Hour).Truncate(24 * time.Hour)
 	works := []workload{makeWorkload(false, b.o.single, t0), makeWorkload(true, b.o.profile, t0)}
+	// The database alone: the same readings as line protocol, no broker.
+	for _, w := range works {
+		lines := lineProtocol(w)
+		batch := 5000
+		if b.o.batch > 0 {
+			batch = b.o.batch
+		}
+		for r := 1; r <= b.o.rounds; r++ {
+			db, err := b.newDB("d")
+			if err != nil {
+				return err
+			}
+			start := time.Now()
+			if err := directWrite(ctx, b.in.URL, db+"/autogen", lines, batch); err != nil {
+				return fmt.Errorf("direct write: %w", err)
+			}
+			end, _, err := rig.WaitCount(ctx, b.in.URL, db, w.readings, 20*time.Millisecond)
+			b.dropDB(db)
+			if err != nil {
+				return err
+			}
+			secs := end.Sub(start).Seconds()
+			b.record(result{Pipeline: "D", Workload: w.name, Round: r, Readings: w.readings, Seconds: secs, Rate: float64(w.readings) / secs})
+		}
+	}
 	for _, inflight := range b.o.inflights {
 		mq, err := b.startBroker(inflight)
 		if err != nil {
@@ -542,6 +571,9 @@ func (b *bench) latency(ctx context.Context) error {
 		return err
 	}
 	defer p.Close()
+	probeStop := make(chan struct{})
+	probeDone := make(chan []time.Duration, 1)
+	go func() { probeDone <- fsyncProbe(filepath.Join(b.out, "runs", db+"-latency", "fsync-probe"), probeStop) }()
 	start := time.Now()
 	pctx, cancel := context.WithTimeout(ctx, b.o.latencyFor+2*time.Minute)
 	defer cancel()
@@ -550,6 +582,8 @@ func (b *bench) latency(ctx context.Context) error {
 		return fmt.Errorf("publish: %w", err)
 	}
 	pubSecs := time.Since(start).Seconds()
+	close(probeStop)
+	probe := <-probeDone
 	steps := len(w.msgs) / s.Sites
 	var firings []rig.ExpectedAlert
 	for _, a := range s.ExpectedAlerts(steps) {
@@ -583,6 +617,7 @@ func (b *bench) latency(ctx context.Context) error {
 	sort.Slice(samples, func(i, j int) bool { return samples[i] < samples[j] })
 	lr := latencyResult{rateMsgs: rate, rateReadings: rate * 24, seconds: pubSecs, expected: len(firings), samples: samples,
 		achieved: float64(len(w.msgs)) / pubSecs}
+	lr.probe = probe
 	// Where a slow alert can have waited: spool commits and detection
 	// checkpoints over 128 ms, outbox-to-receiver deliveries over 100 ms.
 	for _, h := range []struct{ label, name, le string }{
@@ -754,4 +789,35 @@ func slow(m map[string]float64, name, le string) (float64, float64) {
 		}
 	}
 	return above + total, total
+}
+
+// fsyncProbe writes 4 KiB and fsyncs it every 50 ms in path's directory (the
+// disk the daemon's spool and InfluxDB share) until stop closes, and returns
+// the sorted durations of the write+fsync: the disk's own latency under the
+// load, independent of holomix.
+func fsyncProbe(path string, stop <-chan struct{}) []time.Duration {
+	f, err := os.OpenFile(path, os.O_CREATE|os.O_WRONLY|os.O_TRUNC, 0o644)
+	if err != nil {
+		return nil
+	}
+	defer os.Remove(path)
+	defer f.Close()
+	buf := make([]byte, 4096)
+	var out []time.Duration
+	for i := 0; ; i++ {
+		select {
+		case <-stop:
+			sort.Slice(out, func(i, j int) bool { return out[i] < out[j] })
+			return out
+		case <-time.After(50 * time.Millisecond):
+		}
+		t := time.Now()
+		if _, err := f.WriteAt(buf, int64(i%256)*4096); err != nil {
+			continue
+		}
+		if err := f.Sync(); err != nil {
+			continue
+		}
+		out = append(out, time.Since(t))
+	}
 }

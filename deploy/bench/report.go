@@ -106,7 +106,8 @@ type latencyResult struct {
 	seconds                float64
 	expected               int
 	samples                []time.Duration
-	slow                   []string // histogram tails from the daemon's /metrics
+	slow                   []string        // histogram tails from the daemon's /metrics
+	probe                  []time.Duration // 4 KiB write + fsync every 50 ms on the same disk, sorted
 }
 
 type memoryResult struct {
@@ -129,6 +130,7 @@ type report struct {
 	replay   string
 	profiles []string
 	commands []string
+	batch    int // points per database request (A, B and the direct writes)
 }
 
 func (b *bench) recordReport(r result) { b.report.runs = append(b.report.runs, r) }
@@ -212,6 +214,9 @@ func (r *report) markdown() string {
 		seen := map[key]bool{}
 		for _, x := range r.runs {
 			k := key{x.Workload, x.Inflight}
+			if x.Pipeline == "D" {
+				continue
+			}
 			if !seen[k] {
 				seen[k] = true
 				keys = append(keys, k)
@@ -235,6 +240,11 @@ func (r *report) markdown() string {
 				cs = fmt.Sprintf("%s msgs/s", thousands(median(c)*float64(1)/readingsPerMsg(k.w)))
 			}
 			fmt.Fprintf(&b, "| %s | %d | %s | %s | %.2f | %s | %s |\n", wname(k.w), k.i, spread(a), spread(bb), ratio, cs, target)
+		}
+		for _, w := range []string{"json", "json-profile"} {
+			if d := r.rates("D", w, 0); len(d) > 0 {
+				fmt.Fprintf(&b, "\nInfluxDB alone, the same %s readings as line protocol in sequential %s-point requests (no broker, no decoding): %s readings/s.\n", w, thousands(float64(r.batch)), spread(d))
+			}
 		}
 		b.WriteString("\nPer round (readings/s):\n\n| workload | inflight | round | A | B | B/A |\n|---|---|---|---|---|---|\n")
 		for _, k := range keys {
@@ -270,6 +280,10 @@ func (r *report) markdown() string {
 			thousands(l.rateMsgs), thousands(l.rateReadings), thousands(l.achieved), len(l.samples), l.expected,
 			ms(pct(l.samples, 0.5)), ms(pct(l.samples, 0.99)), ms(pct(l.samples, 1)),
 			verdict(len(l.samples) > 0 && len(l.samples) >= l.expected && pct(l.samples, 0.99) < 500*time.Millisecond))
+		if len(l.probe) > 0 {
+			fmt.Fprintf(&b, "The disk itself meanwhile (4 KiB write + fsync every 50 ms beside the spool, %d probes): p50 %s, p99 %s, max %s.\n",
+				len(l.probe), ms(pct(l.probe, 0.5)), ms(pct(l.probe, 0.99)), ms(pct(l.probe, 1)))
+		}
 		if len(l.slow) > 0 {
 			b.WriteString("During that run (daemon /metrics): " + strings.Join(l.slow, "; ") + ".\n\n")
 		}
@@ -288,7 +302,7 @@ func (r *report) markdown() string {
 	if len(r.profiles) > 0 {
 		b.WriteString("CPU profiles of B (in-process, same code as the binary): " + strings.Join(r.profiles, ", ") + "\n\n")
 	}
-	b.WriteString("Method: A and B get the same pre-generated messages (100 sites × 24 depths, 5 sites with intake jumps that fire intake_change), published at QoS 1 while the consumer is offline, so its persistent session holds them; the clock starts when the consumer starts (for B: when the binary is executed) and stops when `SELECT count(temp_c) FROM water_temperature` returns every reading. A: paho (QoS 1, auto-ack) → encoding/json → influxdb-client-go WriteAPI (batch 5,000, flush 100 ms). B: `holomix run` with 100 configured sites with an intake each, QC, fsynced spool, assembly, detection, water_column/lake_event points and a signed webhook receiver. Count-only: a paho subscriber at QoS 1 that only counts (the broker + client ceiling). Broker: deploy/mosquitto.conf's flow control (max_queued_messages 1000000, no byte limits, autosave 60 s) with max_inflight_messages as listed (20 = Mosquitto's default).\n\n")
+	b.WriteString("Method: A and B get the same pre-generated messages (100 sites × 24 depths, 5 sites with intake jumps that fire intake_change), published at QoS 1 while the consumer is offline, so its persistent session holds them; the clock starts when the consumer starts (for B: when the binary is executed) and stops when `SELECT count(temp_c) FROM water_temperature` returns every reading. A: paho (QoS 1, auto-ack) → encoding/json → influxdb-client-go WriteAPI (batch " + thousands(float64(r.batch)) + ", flush 100 ms). B: `holomix run` (influx.batch_size " + thousands(float64(r.batch)) + ") with 100 configured sites with an intake each, QC, fsynced spool, assembly, detection, water_column/lake_event points and a signed webhook receiver. Count-only: a paho subscriber at QoS 1 that only counts (the broker + client ceiling). Broker: deploy/mosquitto.conf's flow control (max_queued_messages 1000000, no byte limits, autosave 60 s) with max_inflight_messages as listed (20 = Mosquitto's default).\n\n")
 	b.WriteString("Commands: " + strings.Join(r.commands, "; ") + "\n")
 	return b.String()
 }
