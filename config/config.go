@@ -93,13 +93,18 @@ type Fields struct {
 
 // Influx is the database connection.
 type Influx struct {
-	URL       string   `yaml:"url"`    // http://127.0.0.1:8086; empty disables the writer (readings stay spooled)
-	Org       string   `yaml:"org"`    // ignored by InfluxDB 1.8
-	Bucket    string   `yaml:"bucket"` // "database/retention" on 1.8, bucket name on 2.x
-	Token     Secret   `yaml:"token"`  // "user:password" on 1.8 with auth, API token on 2.x
-	TLS       TLS      `yaml:"tls"`
-	BatchSize int      `yaml:"batch_size"`
-	Timeout   Duration `yaml:"timeout"`
+	URL       string `yaml:"url"`    // http://127.0.0.1:8086; empty disables the writer (readings stay spooled)
+	Org       string `yaml:"org"`    // ignored by InfluxDB 1.8
+	Bucket    string `yaml:"bucket"` // "database/retention" on 1.8, bucket name on 2.x
+	Token     Secret `yaml:"token"`  // "user:password" on 1.8 with auth, API token on 2.x
+	TLS       TLS    `yaml:"tls"`
+	BatchSize int    `yaml:"batch_size"`
+	// WritesInFlight is the number of write requests the writer keeps open
+	// at once (default DefaultWritesInFlight): the next batch is read from
+	// the spool and sent while the database still works on the previous
+	// one. 1 writes strictly one batch after the other.
+	WritesInFlight int      `yaml:"writes_in_flight"`
+	Timeout        Duration `yaml:"timeout"`
 }
 
 // Storage is the local data directory (spool, outbox, detector state).

@@ -11,6 +11,7 @@ const (
 	DefaultFormat          = "json"
 	DefaultBucket          = "lake/autogen"
 	DefaultBatchSize       = 5000
+	DefaultWritesInFlight  = 2
 	DefaultInfluxTimeout   = 10 * time.Second
 	DefaultStorageDir      = "/var/lib/holomix"
 	DefaultSpoolMaxBytes   = 1 << 30
@@ -37,6 +38,7 @@ func Defaults(c *Config) {
 	in := &c.Influx
 	setS(&in.Bucket, DefaultBucket)
 	setI(&in.BatchSize, DefaultBatchSize)
+	setI(&in.WritesInFlight, DefaultWritesInFlight)
 	setD(&in.Timeout, DefaultInfluxTimeout)
 
 	st := &c.Storage

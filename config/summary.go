@@ -28,7 +28,7 @@ func (c *Config) WriteSummary(w io.Writer) {
 		fmt.Fprintln(w)
 	}
 	if c.Influx.URL != "" {
-		fmt.Fprintf(w, "influx    %s  bucket=%s  token=%s  batch=%d\n", c.Influx.URL, c.Influx.Bucket, c.Influx.Token, c.Influx.BatchSize)
+		fmt.Fprintf(w, "influx    %s  bucket=%s  token=%s  batch=%d  in_flight=%d\n", c.Influx.URL, c.Influx.Bucket, c.Influx.Token, c.Influx.BatchSize, c.Influx.WritesInFlight)
 	} else {
 		fmt.Fprintln(w, "influx    (none: readings stay in the spool)")
 	}

@@ -267,6 +267,9 @@ func (v *validator) influx(c *Config) {
 	if in.BatchSize < 1 || in.BatchSize > 100000 {
 		v.fail("1..100000; 5000 is a good batch", fmt.Sprintf("batch_size %d out of range", in.BatchSize), "influx", "batch_size")
 	}
+	if in.WritesInFlight < 1 || in.WritesInFlight > 16 {
+		v.fail("1..16; 2 keeps a database on the same machine busy", fmt.Sprintf("writes_in_flight %d out of range", in.WritesInFlight), "influx", "writes_in_flight")
+	}
 	v.tlsFiles(in.TLS, "influx", "tls")
 }
 

@@ -3,7 +3,7 @@
 # (loopback ports, started by the suite) under steady load with alert-triggering
 # intake changes, through nine faults: SIGKILL ×3, InfluxDB down 60 s, InfluxDB
 # down until the spool's size limit applies back-pressure, a broker restart, the
-# webhook receiver down 2 min then 500 then 429, the storage disk full (8 MiB
+# webhook receiver down 2 min then 500 then 429, the storage disk full (32 MiB
 # tmpfs; root needed, else the spool limit stands in), 10 % malformed payloads,
 # clocks an hour ahead and a day late, SIGTERM under load. One results table;
 # exit status 1 on any lost or duplicated reading or alert. Then every payload

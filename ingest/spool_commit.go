@@ -838,12 +838,15 @@ func (d *dupMemory) restoreChunks(chunks iter.Seq2[string, []byte]) error {
 
 // rateLog lets one log line per key through every interval and counts the rest.
 type rateLog struct {
+	mu    sync.Mutex // the writer's batches in flight log concurrently
 	every time.Duration
 	last  map[string]time.Time
 	supp  map[string]int
 }
 
 func (l *rateLog) allow(key string, now time.Time) (suppressed int, ok bool) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
 	if l.last == nil {
 		l.last, l.supp = make(map[string]time.Time), make(map[string]int)
 	}

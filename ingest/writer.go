@@ -5,6 +5,7 @@ import (
 	"crypto/tls"
 	"errors"
 	"fmt"
+	"hash/maphash"
 	"log/slog"
 	"math/rand/v2"
 	"net/http"
@@ -35,6 +36,7 @@ import (
 const (
 	MeasurementReadings = "water_temperature"
 	DefaultBatchSize    = 5000
+	DefaultInFlight     = 2
 	defaultWriteTimeout = 10 * time.Second
 	defaultBackoffMin   = 250 * time.Millisecond
 	defaultBackoffMax   = 30 * time.Second
@@ -57,6 +59,12 @@ type WriterOptions struct {
 	Timeout time.Duration
 	// BatchSize is the number of points per request (<= 0: 5000).
 	BatchSize int
+	// InFlight is the number of reading batches written at once (<= 0: 2):
+	// the next batch is read and sent while the database still works on the
+	// previous one. Batches are marked written in sequence order, and a batch
+	// that rewrites a point (same series and time) of a batch still in
+	// flight waits for it, so the later value always wins.
+	InFlight int
 	// BackoffMin and BackoffMax bound the retry delay (exponential, full
 	// jitter; defaults 250 ms and 30 s).
 	BackoffMin, BackoffMax time.Duration
@@ -81,11 +89,11 @@ type Writer struct {
 	wake   chan struct{}
 
 	// run-loop state (one goroutine at a time: Run, then Flush)
-	cursor  uint64
+	cursor  uint64 // last reading written and marked
 	dcursor uint64
-	entries []Entry
 	derived []DerivedPoint
-	buf     []byte
+	free    []*flight // flights to reuse
+	seed    maphash.Seed
 	rl      rateLog
 
 	mu        sync.Mutex
@@ -108,6 +116,9 @@ func NewWriter(o WriterOptions) (*Writer, error) {
 	}
 	if o.BatchSize <= 0 {
 		o.BatchSize = DefaultBatchSize
+	}
+	if o.InFlight <= 0 {
+		o.InFlight = DefaultInFlight
 	}
 	if o.BackoffMin <= 0 {
 		o.BackoffMin = defaultBackoffMin
@@ -139,7 +150,7 @@ func NewWriter(o WriterOptions) (*Writer, error) {
 	w := &Writer{
 		o: o, spool: o.Spool, client: client, api: client.WriteAPIBlocking(o.Org, o.Bucket),
 		log: o.Logger, m: o.Metrics, wake: make(chan struct{}, 1),
-		cursor: st.Written, rl: rateLog{every: rejectLogEvery},
+		cursor: st.Written, rl: rateLog{every: rejectLogEvery}, seed: maphash.MakeSeed(),
 	}
 	w.dcursor = w.spoolDerivedCursor()
 	return w, nil
@@ -197,7 +208,7 @@ func (w *Writer) Run(ctx context.Context) error {
 	lastPing := time.Time{}
 	full := 0
 	for {
-		n, err := w.step(ctx, true)
+		n, err := w.pump(ctx, true)
 		if ctx.Err() != nil {
 			return nil
 		}
@@ -251,7 +262,7 @@ func (w *Writer) ping(ctx context.Context) {
 // error); used at shutdown within ctx's deadline.
 func (w *Writer) Flush(ctx context.Context) error {
 	for {
-		n, err := w.step(ctx, false)
+		n, err := w.pump(ctx, false)
 		if err != nil {
 			return err
 		}
@@ -261,58 +272,180 @@ func (w *Writer) Flush(ctx context.Context) error {
 	}
 }
 
-// step writes one batch of readings and one of derived points; n is the
-// number of points handled.
-func (w *Writer) step(ctx context.Context, retry bool) (n int, err error) {
-	w.entries, err = w.spool.ReadReadings(w.cursor, w.o.BatchSize, w.entries[:0])
+// flight is one batch of readings on its way to the database.
+type flight struct {
+	entries []Entry
+	buf     []byte
+	keys    map[uint64]struct{} // series and time of each point (hashed)
+	last    uint64              // sequence of the last reading
+	stored  int
+	err     error
+	done    chan struct{}
+}
+
+// pointKey identifies a stored point: InfluxDB keeps one per series and time.
+type pointKey struct {
+	site, sensor string
+	depth        float64
+	time         int64
+}
+
+// pump writes the spooled readings after w.cursor, up to o.InFlight batches
+// at once, marking each written in sequence order as it completes, and the
+// derived points that may follow them; n is the number of points handled
+// (0: nothing was pending). On an error it waits for the batches still in
+// flight and returns; batches not yet marked are sent again next time (their
+// points overwrite themselves in the database).
+func (w *Writer) pump(ctx context.Context, retry bool) (n int, err error) {
+	var q []*flight
+	var held *flight // read, but it rewrites a point of a batch in flight
+	defer func() {
+		for _, f := range q {
+			<-f.done
+			w.release(f)
+		}
+		if held != nil {
+			w.release(held)
+		}
+	}()
+	sent := w.cursor
+	for {
+		for len(q) < w.o.InFlight {
+			f := held
+			held = nil
+			if f == nil {
+				if f, err = w.prepare(sent); err != nil {
+					return n, err
+				}
+				if f == nil {
+					break
+				}
+			}
+			if w.clashes(f, q) {
+				held = f
+				break
+			}
+			sent = f.last
+			q = append(q, f)
+			go func() {
+				defer close(f.done)
+				body := string(f.buf[:len(f.buf)-1])
+				f.stored, f.err = w.deliver(ctx, body, len(f.entries), MeasurementReadings, retry)
+			}()
+		}
+		if len(q) == 0 {
+			m, err := w.writeDerived(ctx, retry)
+			return n + m, err
+		}
+		f := q[0]
+		<-f.done
+		q = q[1:]
+		if f.err != nil {
+			w.release(f)
+			return n, f.err
+		}
+		if err := w.spool.MarkWritten(f.last); err != nil {
+			w.release(f)
+			return n, err
+		}
+		w.cursor = f.last
+		w.m.ReadingsStored.Add(float64(f.stored))
+		n += len(f.entries)
+		w.release(f)
+		m, err := w.writeDerived(ctx, retry)
+		n += m
+		if err != nil {
+			return n, err
+		}
+	}
+}
+
+// prepare reads the batch after seq and encodes it (nil: nothing pending).
+func (w *Writer) prepare(seq uint64) (*flight, error) {
+	var f *flight
+	if k := len(w.free); k > 0 {
+		f, w.free = w.free[k-1], w.free[:k-1]
+	} else {
+		f = &flight{}
+	}
+	var err error
+	f.entries, err = w.spool.ReadReadings(seq, w.o.BatchSize, f.entries[:0])
+	if err != nil || len(f.entries) == 0 {
+		w.release(f)
+		return nil, err
+	}
+	f.buf = f.buf[:0]
+	for i := range f.entries {
+		f.buf = AppendLineProtocol(f.buf, &f.entries[i].Reading)
+	}
+	f.last = f.entries[len(f.entries)-1].Seq
+	f.stored, f.err, f.done = 0, nil, make(chan struct{})
+	if w.o.InFlight > 1 {
+		if f.keys == nil {
+			f.keys = make(map[uint64]struct{}, len(f.entries))
+		}
+		clear(f.keys)
+		for i := range f.entries {
+			r := &f.entries[i].Reading
+			f.keys[maphash.Comparable(w.seed, pointKey{r.Site, r.Sensor, r.Depth, r.Time.UnixNano()})] = struct{}{}
+		}
+	}
+	return f, nil
+}
+
+// clashes reports whether f writes a point (series and time) that a batch
+// in q also writes: f must then wait, so that the later value wins. A hash
+// collision only costs that wait.
+func (w *Writer) clashes(f *flight, q []*flight) bool {
+	for _, o := range q {
+		small, big := f.keys, o.keys
+		if len(small) > len(big) {
+			small, big = big, small
+		}
+		for k := range small {
+			if _, ok := big[k]; ok {
+				return true
+			}
+		}
+	}
+	return false
+}
+
+func (w *Writer) release(f *flight) {
+	clear(f.entries)
+	f.entries = f.entries[:0]
+	if len(w.free) < w.o.InFlight+1 {
+		w.free = append(w.free, f)
+	}
+}
+
+// writeDerived writes one batch of the derived points whose readings are
+// written (a derived point waits for the readings it must follow: a late
+// reading's flagged copy must land after the reading itself).
+func (w *Writer) writeDerived(ctx context.Context, retry bool) (n int, err error) {
+	w.derived, err = w.spool.ReadDerived(w.dcursor, w.cursor, w.o.BatchSize, w.derived[:0])
+	if err != nil || len(w.derived) == 0 {
+		return 0, err
+	}
+	var b strings.Builder
+	for i := range w.derived {
+		if i > 0 {
+			b.WriteByte('\n')
+		}
+		b.Write(w.derived[i].Line)
+	}
+	stored, err := w.deliver(ctx, b.String(), len(w.derived), "derived", retry)
 	if err != nil {
 		return 0, err
 	}
-	if len(w.entries) > 0 {
-		w.buf = w.buf[:0]
-		for i := range w.entries {
-			w.buf = AppendLineProtocol(w.buf, &w.entries[i].Reading)
-		}
-		body := string(w.buf[:len(w.buf)-1])
-		stored, err := w.deliver(ctx, body, len(w.entries), MeasurementReadings, retry)
-		if err != nil {
-			return 0, err
-		}
-		last := w.entries[len(w.entries)-1].Seq
-		if err := w.spool.MarkWritten(last); err != nil {
-			return 0, err
-		}
-		w.cursor = last
-		w.m.ReadingsStored.Add(float64(stored))
-		n += len(w.entries)
-		clear(w.entries)
+	last := w.derived[len(w.derived)-1].Seq
+	if err := w.spool.MarkDerivedWritten(last); err != nil {
+		return 0, err
 	}
-	// A derived point waits for the readings it must follow.
-	w.derived, err = w.spool.ReadDerived(w.dcursor, w.cursor, w.o.BatchSize, w.derived[:0])
-	if err != nil {
-		return n, err
-	}
-	if len(w.derived) > 0 {
-		var b strings.Builder
-		for i := range w.derived {
-			if i > 0 {
-				b.WriteByte('\n')
-			}
-			b.Write(w.derived[i].Line)
-		}
-		stored, err := w.deliver(ctx, b.String(), len(w.derived), "derived", retry)
-		if err != nil {
-			return n, err
-		}
-		last := w.derived[len(w.derived)-1].Seq
-		if err := w.spool.MarkDerivedWritten(last); err != nil {
-			return n, err
-		}
-		w.dcursor = last
-		w.m.DerivedStored.Add(float64(stored))
-		n += len(w.derived)
-		clear(w.derived)
-	}
+	w.dcursor = last
+	w.m.DerivedStored.Add(float64(stored))
+	n = len(w.derived)
+	clear(w.derived)
 	return n, nil
 }
 

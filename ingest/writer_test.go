@@ -243,3 +243,70 @@ func TestAppendLineProtocol(t *testing.T) {
 		t.Fatal("measurementOf")
 	}
 }
+
+// TestWriterInFlightLaterValueWins: with several batches in flight at once,
+// a reading that replaces a point of an earlier batch (same series and time,
+// another value: a buoy's correction, flagged duplicate) must still land
+// after the point it replaces, since InfluxDB keeps the last write of a
+// series and time. Every batch here rewrites points of the batch before it.
+func TestWriterInFlightLaterValueWins(t *testing.T) {
+	in := testenv.StartInflux(t, testenv.InfluxOptions{})
+	s := spOpen(t, SpoolOptions{})
+	const batch, batches = 500, 12
+	var es []Entry
+	want := map[int64]float64{} // time → last value written
+	for b := 0; b < batches; b++ {
+		for i := 0; i < batch; i++ {
+			k := b*batch + i
+			ts := spT0.Add(time.Duration(k) * time.Second)
+			r := Reading{Site: "weir", Depth: 3, Time: ts, TempC: 6 + float64(k%97)/100}
+			if b > 0 && i%10 == 0 { // rewrite a point of the previous batch
+				r.Time = spT0.Add(time.Duration((b-1)*batch+i) * time.Second)
+				r.TempC = 20 + float64(b)
+				r.QC = QCDuplicate
+			}
+			want[r.Time.UnixNano()] = r.TempC
+			es = append(es, Entry{Recv: ts, Reading: r})
+		}
+	}
+	if _, err := s.Commit(es, nil); err != nil {
+		t.Fatal(err)
+	}
+	w, err := NewWriter(WriterOptions{Spool: s, URL: in.URL, Bucket: in.Bucket, Token: in.Token, BatchSize: batch, InFlight: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer w.Close()
+	// The clash check itself: batch 2 rewrites batch 1, batch 3 does not touch batch 1.
+	f1, _ := w.prepare(0)
+	f2, _ := w.prepare(f1.last)
+	f3, _ := w.prepare(f2.last + batch)
+	if f1 == nil || f2 == nil || f3 == nil {
+		t.Fatal("prepare returned no batch")
+	}
+	if !w.clashes(f2, []*flight{f1}) {
+		t.Fatal("a batch rewriting points of a batch in flight was not held back")
+	}
+	if w.clashes(f3, []*flight{f1}) {
+		t.Fatal("batches 1 and 4 share no point but were reported to clash")
+	}
+	for _, f := range []*flight{f1, f2, f3} {
+		w.release(f)
+	}
+	if err := w.Flush(context.Background()); err != nil {
+		t.Fatal(err)
+	}
+	rows := wrQuery(t, in, `SELECT temp_c FROM water_temperature WHERE site = 'weir'`)
+	if len(rows) != len(want) {
+		t.Fatalf("%d points stored, want %d", len(rows), len(want))
+	}
+	for _, r := range rows {
+		ts, err := time.Parse(time.RFC3339Nano, r[0].(string))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := r[1].(float64); got != want[ts.UnixNano()] {
+			t.Fatalf("point at %s: %v, want the later value %v", ts.Format(time.RFC3339), got, want[ts.UnixNano()])
+		}
+	}
+}

@@ -52,7 +52,7 @@ func newBackfill(ctx context.Context, cfg *config.Config) (*backfill, error) {
 	}
 	w, err := ingest.NewWriter(ingest.WriterOptions{
 		Spool: sp, URL: cfg.Influx.URL, Org: cfg.Influx.Org, Bucket: cfg.Influx.Bucket, Token: cfg.Influx.Token.Get(),
-		TLS: tlsCfg, Timeout: cfg.Influx.Timeout.D(), BatchSize: cfg.Influx.BatchSize,
+		TLS: tlsCfg, Timeout: cfg.Influx.Timeout.D(), BatchSize: cfg.Influx.BatchSize, InFlight: cfg.Influx.WritesInFlight,
 	})
 	if err != nil {
 		sp.Close()

@@ -233,7 +233,7 @@ func webhookOutage(ctx context.Context, c *Case) error {
 	return nil
 }
 
-// 5. The storage directory's disk full: an 8 MiB tmpfs filled by another
+// 5. The storage directory's disk full: a 32 MiB tmpfs filled by another
 // file under load, then freed. Without the permission to mount, the
 // spool's own size limit stands in (and the output says so).
 func diskFull(ctx context.Context, c *Case) error {
@@ -241,7 +241,7 @@ func diskFull(ctx context.Context, c *Case) error {
 	if err := os.MkdirAll(dir, 0o750); err != nil {
 		return err
 	}
-	out, err := exec.Command("mount", "-t", "tmpfs", "-o", "size=8m", "tmpfs", dir).CombinedOutput()
+	out, err := exec.Command("mount", "-t", "tmpfs", "-o", "size=32m", "tmpfs", dir).CombinedOutput()
 	if err != nil {
 		c.note("tmpfs mount not possible (%v: %s): fell back to the spool's size limit with the database down", err, strings.TrimSpace(string(out)))
 		return spoolLimit(ctx, c)
@@ -251,36 +251,69 @@ func diskFull(ctx context.Context, c *Case) error {
 			c.s.logf("umount %s: %v %s", dir, err, out)
 		}
 	})
-	c.note("storage.dir on an 8 MiB tmpfs")
+	// As an operator must, keep the spool's own limit well below the disk:
+	// a spool that fills its disk by itself cannot even delete (bbolt needs
+	// free pages to write the deletion), whereas a disk filled by something
+	// else recovers when that space is freed.
+	c.cfg.SpoolMaxBytes = "4MiB"
+	c.note("storage.dir on a 32 MiB tmpfs, storage.spool_max_bytes 4MiB")
 	if err := c.start(); err != nil {
 		return err
 	}
 	m := c.s.Mode
-	done := c.traffic(ctx, c.readings(c.stepsFor(m.DiskFullHold+m.Traffic)), m.Rate)
-	if err := c.waitAcked(ctx, 0.25); err != nil {
-		return err
-	}
+	cycles := max(1, m.DiskFullCycles)
+	done := c.traffic(ctx, c.readings(c.stepsFor(time.Duration(cycles)*(m.DiskFullHold+5*time.Second)+m.Traffic)), m.Rate)
 	ballast := filepath.Join(dir, "ballast")
-	n, err := fill(ballast)
-	if !errors.Is(err, syscall.ENOSPC) {
-		return fmt.Errorf("filling the disk: %v", err)
+	for cy := 0; cy < cycles; cy++ {
+		if err := c.waitAcked(ctx, float64(cy+1)/float64(cycles+2)); err != nil {
+			return err
+		}
+		// Either the disk refuses a commit, or (when the ballast left more
+		// room than the spool's own limit) the spool fills up to that limit
+		// first: both stop acknowledging with an error line.
+		stopped := func() int {
+			return c.d.Log.Count("spool commit failed") + c.d.Log.Count("spool full: messages are not acknowledged")
+		}
+		before := stopped()
+		n, err := fill(ballast)
+		if !errors.Is(err, syscall.ENOSPC) {
+			return fmt.Errorf("filling the disk: %v", err)
+		}
+		full := time.Now()
+		if !waitFor(ctx, 30*time.Second, func() bool { return stopped() > before }) {
+			c.fail("no \"spool commit failed\" or \"spool full\" log line within 30 s of the disk filling up")
+		}
+		code, body, _ := c.d.Readyz()
+		sp, _ := body["spool"].(map[string]any)
+		c.note("disk filled (%d KiB ballast); /readyz %d, spool: %v", n>>10, code, sp["detail"])
+		if code != 503 {
+			c.fail("/readyz with the disk full: %d (want 503)", code)
+		}
+		time.Sleep(time.Until(full.Add(m.DiskFullHold)))
+		if err := os.Remove(ballast); err != nil {
+			return err
+		}
+		c.note("space freed after %v", time.Since(full).Round(time.Second))
 	}
-	full := time.Now()
-	if !waitFor(ctx, 30*time.Second, func() bool { return c.d.Log.Count("spool commit failed") > 0 }) {
-		c.fail("no \"spool commit failed\" log line within 30 s of the disk filling up")
-	}
-	code, body, _ := c.d.Readyz()
-	sp, _ := body["spool"].(map[string]any)
-	c.note("disk filled (%d KiB ballast); /readyz %d, spool: %v", n>>10, code, sp["detail"])
-	if code != 503 {
-		c.fail("/readyz with the disk full: %d (want 503)", code)
-	}
-	time.Sleep(time.Until(full.Add(m.DiskFullHold)))
-	if err := os.Remove(ballast); err != nil {
+	if err := <-done; err != nil {
 		return err
 	}
-	c.note("space freed after %v", time.Since(full).Round(time.Second))
-	return <-done
+	// Which parts of the daemon met the full disk and waited (each logs once per wait).
+	var waited []string
+	for _, w := range []struct{ what, line string }{
+		{"group commit", "spool commit failed"},
+		{"spool limit", "spool full: messages are not acknowledged"},
+		{"derived points", "detection waits until its derived points can be spooled"},
+		{"alert outbox", "detection waits until the alert outbox can store the event"},
+		{"database writer", "the database writer waits for space"},
+		{"checkpoint", "checkpoint failed"},
+	} {
+		if n := c.d.Log.Count(w.line); n > 0 {
+			waited = append(waited, fmt.Sprintf("%s %d", w.what, n))
+		}
+	}
+	c.note("waits logged: %s", strings.Join(waited, ", "))
+	return nil
 }
 
 // fill writes path until the file system is full and returns the bytes written.

@@ -35,6 +35,7 @@ type Mode struct {
 	HookThrottle   time.Duration // then 429 with Retry-After
 	SpoolFullHold  time.Duration // back-pressure held this long
 	DiskFullHold   time.Duration
+	DiskFullCycles int           // times the disk is filled and freed
 	StoreTimeout   time.Duration // wait for every reading in InfluxDB after the traffic
 	AlertTimeout   time.Duration // wait for every alert after the traffic
 	Sites          int
@@ -48,12 +49,12 @@ type Mode struct {
 var (
 	Full = Mode{Name: "full", Rate: 2000, Traffic: 60 * time.Second, InfluxOutage: 60 * time.Second,
 		HookDown: 2 * time.Minute, HookFail: 30 * time.Second, HookThrottle: 30 * time.Second,
-		SpoolFullHold: 20 * time.Second, DiskFullHold: 30 * time.Second,
+		SpoolFullHold: 20 * time.Second, DiskFullHold: 30 * time.Second, DiskFullCycles: 3,
 		StoreTimeout: 5 * time.Minute, AlertTimeout: 8 * time.Minute,
 		Sites: 20, Depths: 12, TriggerSites: 4, SIGTERMBudget: 5 * time.Second, MalformedEvery: 10}
 	Reduced = Mode{Name: "reduced", Rate: 1500, Traffic: 8 * time.Second, InfluxOutage: 10 * time.Second,
 		HookDown: 10 * time.Second, HookFail: 4 * time.Second, HookThrottle: 4 * time.Second,
-		SpoolFullHold: 3 * time.Second, DiskFullHold: 5 * time.Second,
+		SpoolFullHold: 3 * time.Second, DiskFullHold: 5 * time.Second, DiskFullCycles: 1,
 		StoreTimeout: 90 * time.Second, AlertTimeout: 90 * time.Second,
 		Sites: 20, Depths: 12, TriggerSites: 4, SIGTERMBudget: 5 * time.Second, MalformedEvery: 10}
 )

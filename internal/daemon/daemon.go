@@ -56,7 +56,9 @@ const (
 	DefaultCheckpointInterval = 5 * time.Second
 	// shutdownBudget is the time Run takes at most to drain after ctx ends.
 	shutdownBudget = 5 * time.Second
-	feedChunk      = 4096
+	// maxCheckpointStretch bounds the stretched checkpoint interval (feedLoop).
+	maxCheckpointStretch = time.Minute
+	feedChunk            = 4096
 	// redeliveryWindow is the number of recent timestamps per sensor that
 	// quality control and the exact-duplicate memory keep.
 	redeliveryWindow = 16
@@ -372,7 +374,7 @@ func open(o Options) (d *daemon, err error) {
 		}
 		d.wr, err = ingest.NewWriter(ingest.WriterOptions{Spool: d.spool, URL: cfg.Influx.URL, Org: cfg.Influx.Org,
 			Bucket: cfg.Influx.Bucket, Token: cfg.Influx.Token.Get(), TLS: tc, Timeout: cfg.Influx.Timeout.D(),
-			BatchSize: cfg.Influx.BatchSize, Logger: d.log.With("component", "influx"), Metrics: d.m})
+			BatchSize: cfg.Influx.BatchSize, InFlight: cfg.Influx.WritesInFlight, Logger: d.log.With("component", "influx"), Metrics: d.m})
 		if err != nil {
 			return nil, err
 		}
@@ -765,8 +767,12 @@ func (d *daemon) closeAll() {
 // feedLoop hands committed readings to detection and checkpoints. The
 // checkpoint interval stretches to 20 times the last checkpoint's duration
 // when that is longer (large installations), so saving state never takes more
-// than about 5 % of the time.
+// than about 5 % of the time, but to at most maxCheckpointStretch: a
+// checkpoint that waited for the committer (whose commits a full disk keeps
+// failing) must not postpone the next one for long, since the spool deletes
+// readings only below a checkpoint and stays full without one.
 func (d *daemon) feedLoop(ctx context.Context) error {
+	d.sink.ctx = ctx
 	ext, reload := d.o.Air, d.o.Reload
 	timer := time.NewTimer(d.ckInt)
 	defer timer.Stop()
@@ -804,7 +810,7 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 				return err
 			}
 			took := d.checkpoint()
-			timer.Reset(max(d.ckInt, 20*took))
+			timer.Reset(max(d.ckInt, min(20*took, maxCheckpointStretch)))
 		}
 	}
 }
@@ -842,6 +848,9 @@ func (d *daemon) feedAll(ctx context.Context) error {
 				d.dm.late.Inc()
 			}
 			d.fed = e.Seq
+		}
+		if err := d.sink.err; err != nil {
+			return fmt.Errorf("daemon: alert outbox: %w", err)
 		}
 		d.dm.fed.Add(float64(len(buf)))
 		if len(d.sink.lines) > 0 {
@@ -994,6 +1003,12 @@ func (d *daemon) checkpoint() time.Duration {
 type engineSink struct {
 	d     *daemon
 	lines [][]byte
+	// ctx is the feed's context (set by feedLoop). An event the alert outbox
+	// cannot store for a full disk is retried until it can or ctx ends; err
+	// then holds the failure and the feed stops without a checkpoint past
+	// the event, so that the next start raises it again.
+	ctx context.Context
+	err error
 }
 
 func lineOf(p *write.Point) []byte {
@@ -1023,9 +1038,36 @@ func (s *engineSink) Event(e detect.Event) {
 		s.d.store.ObserveEvent(e)
 	}
 	s.d.log.Info("event", "site", e.Site, "kind", string(e.Kind), "status", string(e.Status), "time", e.Time, "summary", e.Summary)
-	if err := s.d.dispatcher().Submit(e); err != nil {
+	if err := s.submit(e); err != nil {
 		s.d.dm.submitErrors.Inc()
 		s.d.log.Error("alert outbox refused an event", "site", e.Site, "kind", string(e.Kind), "err", err)
+	}
+}
+
+// submit hands an event to the alert outbox. A full storage disk (ENOSPC,
+// EDQUOT) is waited out with back-off: dropping the event would lose its
+// alert for good, since detection has moved past it. If the feed stops
+// meanwhile, s.err keeps the failure (see engineSink.ctx).
+func (s *engineSink) submit(e detect.Event) error {
+	for attempt := 0; ; attempt++ {
+		err := s.d.dispatcher().Submit(e)
+		if err == nil || (!errors.Is(err, syscall.ENOSPC) && !errors.Is(err, syscall.EDQUOT)) {
+			return err
+		}
+		if attempt == 0 || attempt%20 == 0 {
+			s.d.log.Error("storage disk full: detection waits until the alert outbox can store the event",
+				"site", e.Site, "kind", string(e.Kind), "err", err, "attempt", attempt+1)
+		}
+		done := make(<-chan struct{})
+		if s.ctx != nil {
+			done = s.ctx.Done()
+		}
+		select {
+		case <-done:
+			s.err = err
+			return nil
+		case <-time.After(min(100*time.Millisecond<<min(attempt, 6), 5*time.Second)):
+		}
 	}
 }
 
