@@ -53,6 +53,7 @@ import (
 
 	"holomix/config"
 	"holomix/detect"
+	"holomix/internal/mmtrim"
 )
 
 // OutboxFile is the name of the outbox database inside Options.Dir.
@@ -326,6 +327,10 @@ func (d *Dispatcher) load() error {
 
 // Close stops Run (if running), waits for in-flight results to be written and
 // closes the outbox. It is safe to call more than once.
+// TrimResident drops the pages of the outbox file the process has mapped
+// from its resident set (they stay in the page cache); see mmtrim.
+func (d *Dispatcher) TrimResident() error { return mmtrim.Trim(d.db) }
+
 func (d *Dispatcher) Close() error {
 	d.mu.Lock()
 	if d.closed {

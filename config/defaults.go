@@ -16,7 +16,7 @@ const (
 	DefaultStorageDir      = "/var/lib/holomix"
 	DefaultSpoolMaxBytes   = 1 << 30
 	DefaultDeadLetterMax   = 10000
-	DefaultMemoryLimit     = 128 << 20 // soft limit: holds 1,000 sites of 30 sensors under 150 MB resident
+	DefaultMemoryLimit     = 112 << 20 // soft limit: holds 1,000 sites of 30 sensors under 150 MB resident (deploy/bench.sh)
 	DefaultListen          = "127.0.0.1:8750"
 	DefaultReceiverTimeout = 10 * time.Second
 	DefaultIntakeRate      = 1.0 // °C per hour

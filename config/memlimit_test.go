@@ -5,7 +5,7 @@ import (
 	"testing"
 )
 
-// TestMemoryLimit: storage.memory_limit defaults to 128MiB, an explicit 0
+// TestMemoryLimit: storage.memory_limit defaults to 112MiB, an explicit 0
 // means no limit, sizes parse with units, and a limit too small to run is
 // refused with its line.
 func TestMemoryLimit(t *testing.T) {
@@ -31,7 +31,7 @@ func TestMemoryLimit(t *testing.T) {
 	if err == nil || !strings.Contains(err.Error(), "memory_limit") || !strings.Contains(err.Error(), "line 7") {
 		t.Fatalf("1MiB limit: %v", err)
 	}
-	if DefaultMemoryLimit != 128<<20 {
+	if DefaultMemoryLimit != 112<<20 {
 		t.Errorf("default %d", DefaultMemoryLimit)
 	}
 }

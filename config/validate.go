@@ -115,7 +115,7 @@ func (v *validator) validate(c *Config) {
 		v.fail("", "dead_letter_max must not be negative", "storage", "dead_letter_max")
 	}
 	if c.Storage.MemoryLimit != 0 && c.Storage.MemoryLimit < 32<<20 {
-		v.fail("at least 32MiB (the default is 128MiB), or 0 for no limit", "memory_limit is too small: the garbage collector would run continuously", "storage", "memory_limit")
+		v.fail("at least 32MiB (the default is 112MiB), or 0 for no limit", "memory_limit is too small: the garbage collector would run continuously", "storage", "memory_limit")
 	}
 	ids := map[string]int{}
 	for i := range c.Sites {

@@ -10,7 +10,7 @@ import (
 const CautionIce = "Ice is inferred from water temperatures only; its thickness and strength are unknown. No ice is guaranteed safe: follow local authority guidance (for reference, public guidance asks for at least 15 cm of clear ice for one person on foot, Canadian Red Cross; white ice is about half as strong as clear ice)."
 
 // IceMethod describes the ice detector for messages and documentation.
-const IceMethod = "inferred from water temperatures: onset and end of a lasting top-colder-than-bottom gradient of at least 0.1 °C (Pierson et al. 2011), confirmed by a sheltered surface — the top sensor's hour-to-hour change damped and the whole column calm over 24 hours, most of the sensors' white noise removed when readings come more often than hourly — and a top sensor cold enough for freezing water to float above it; open water when the gradient ends, wind stirs the column again, or the top warms past that limit"
+const IceMethod = "inferred from water temperatures: onset and end of a lasting top-colder-than-bottom gradient of at least 0.1 °C (Pierson et al. 2011), confirmed by a sheltered surface — the top sensor's hour-to-hour change damped and the whole column calm over 24 hours, most of the sensors' white noise removed when readings come more often than hourly, and no open-water day-night swing of the top sensor (a rise by day and a fall by night larger than ice allows at its depth) — and a top sensor cold enough for freezing water to float above it; open water when the gradient ends, wind stirs the column again, or the top warms past that limit"
 
 // name is the site's display name.
 func (s *Site) name() string {
@@ -86,6 +86,9 @@ func (s *Site) iceEvent(ev *evCtx, kind Kind, sig IceSignals, onset time.Time, s
 	)
 	if sig.NoiseCPerH > 0 {
 		e.Metrics = append(e.Metrics, Metric{"top_change_noise_c_per_h", sig.NoiseCPerH, "°C/h"})
+	}
+	if sig.DielSwingMaxC > 0 {
+		e.Metrics = append(e.Metrics, Metric{"top_diel_swing_c", sig.DielSwingC, "°C"}, Metric{"top_diel_swing_limit_c", sig.DielSwingMaxC, "°C"})
 	}
 	return e
 }

@@ -77,6 +77,65 @@ const (
 	noiseZ               = 2                // standard deviations of the noise estimate kept (see noiseRemoved)
 )
 
+// IceDielSwingCM sets the largest day-night swing of the top sensor that ice
+// cover allows, times the sensor's depth (°C·m): at depth z the limit is
+// IceDielSwingCM/z (0.06 °C at 1 m, 0.24 °C at 0.25 m), combined in
+// quadrature with three standard deviations of the white noise of one
+// hourly mean. A larger two-way swing (IceSignals.DielSwingC) rules ice
+// out, both for ice-on and for the walk-back that dates its onset.
+//
+// Why. Under ice the water is cut off from the air: no wind, no heat lost to
+// cold night air. What is left of the day-night cycle is sunlight through
+// the ice warming the water by day and a slow loss to the ice by night
+// (Kirillin et al. 2012, Physics of seasonally ice-covered lakes: a review,
+// Aquatic Sciences 74:659-682, from memory). Open water under nightly frosts
+// cools at night and warms again by day, and when it is calm its column can
+// look as sheltered as under ice to the other tests: on the simulator's
+// saline 12 m lake (top sensor at 1 m), three calm days of open water
+// before a freeze gave the top sensor swings of 0.085-0.10 °C on every 24 h
+// window while the column activity and the top's RMS change stayed within
+// their ice limits, and ice was inferred 2.6 days before the freeze. The
+// swing counts both ways (the smaller of the largest rise and the largest
+// fall): a steady cooling under new ice, the step of a freeze, or a
+// staircase of daytime warming under ice that does not cool again at night
+// move the top one way only.
+//
+// Why 1/z. Sunlight absorbed at depth z per unit volume is I·k·e^(−kz) for
+// an extinction coefficient k (Beer-Lambert); over all k this is largest at
+// k = 1/z, where it is I/(e·z). Whatever the water's colour, the daytime
+// warming under ice, and with it the swing, can grow at most as 1/z towards
+// the ice: a sensor 0.25 m below the surface may swing four times as much
+// as one at 1 m. The constant is calibrated [C], not published: the largest
+// swings × depths seen in the first days under ice were 0.040 °C·m in
+// Crystal Bog 2017-18 (0.16 °C at 0.25 m), 0.033 °C·m in Trout Bog 2017-18
+// (0.06 °C at 0.55 m; Lottig 2022, EDI knb-lter-ntl.390.3) and 0.038 °C·m
+// on the simulator's 3 m pond (0.05 °C at 0.75 m), against 0.085-0.10
+// °C·m in the open water above; 0.06 lies about midway (geometric mean). In
+// energy terms 0.06 °C·m is e·ρ·c_p·0.06 ≈ 0.7 MJ m⁻² of sunlight absorbed
+// under the ice in a day. Checked range [C]: 0.04-0.09 °C·m keeps the
+// NTL-LTER bog dates of TestNTL_Bogs within a day of their values without
+// the rule and brings the simulator's freeze dates within 2 days; at 0.03
+// Crystal Bog 2017-18 got ice five weeks late, at 0.12 the simulator's
+// calm open water passed as ice again.
+//
+// Noise. White noise alone gives 3-hour means of 24 hourly means a two-way
+// swing of about 1.6 standard deviations σ of one hourly mean (median) and
+// 3.1σ at the 99.9th percentile (Monte Carlo, 20 000 windows [C]); 3σ from
+// IceSignals.NoiseCPerH (σ = NoiseCPerH/√2) is added in quadrature. Hourly
+// data carry no noise estimate and are used as they are.
+//
+// Caution. The rule can only delay or withhold an inference of ice, never
+// make one. Under clear, snow-free ice in late winter sunlight can drive
+// larger swings than in the first days of ice; ice-off does not use the
+// swing, but a record that begins (or resumes after a gap) under such ice
+// may infer its ice late or not at all.
+const IceDielSwingCM = 0.06 // °C·m
+
+const (
+	dielNoiseZ   = 3   // noise standard deviations allowed in the swing (see IceDielSwingCM)
+	dielMinDepth = 0.1 // m: shallower top sensors are taken to be at this depth
+)
+
 // iceGateC returns the temperature above its temperature of maximum density
 // at which water is as dense as water at the freezing point (about 8.14 °C
 // for fresh water, from CIPM 2001 [C]). Freezing water at the surface can lie
@@ -114,7 +173,8 @@ type hourRec struct {
 	MeanOK bool      `json:"mean_ok"`
 	Top    float64   `json:"top_c"` // top sensor (within MinSurfaceDepth)
 	TopOK  bool      `json:"top_ok"`
-	Grad   float64   `json:"grad_c"` // top − bottom
+	TopZ   float64   `json:"top_z,omitempty"` // depth of the Top sensor, m (0: not kept, checkpoints before it; see dielSwing)
+	Grad   float64   `json:"grad_c"`          // top − bottom
 	GradOK bool      `json:"grad_ok"`
 	DTop   float64   `json:"dtop_c"` // change of the top sensor from the hour before
 	DTopOK bool      `json:"dtop_ok"`
@@ -262,7 +322,7 @@ func (s *Site) closeHour(ev *evCtx) {
 		sl.BinD2Sum, sl.BinD2N = 0, 0
 	}
 	if top >= 0 && s.st.Slots[top].Depth <= s.cfg.Thresholds.MinSurfaceDepth {
-		rec.Top, rec.TopOK = topMean, true
+		rec.Top, rec.TopOK, rec.TopZ = topMean, true, s.st.Slots[top].Depth
 		if bot != top && s.coversColumn(s.st.Slots[top].Depth, s.st.Slots[bot].Depth) {
 			rec.Grad, rec.GradOK = topMean-botMean, true
 		}
@@ -387,14 +447,81 @@ func (s *Site) iceSignals(at time.Time) IceSignals {
 		sig.ActivityCPerH *= math.Sqrt(math.Max(0, 1-act/sASq))
 	}
 	sig.TopMinusBottomC = sG / float64(nG)
+	sig.DielSwingC, sig.DielSwingMaxC = s.dielSwing(from, at, sig.NoiseCPerH)
 	return sig
+}
+
+// dielSwing returns the top sensor's two-way day-night swing over the hours
+// in [from, at) and the largest swing ice cover allows (both °C; see
+// IceDielSwingCM). Only hours of the sensor that is the top one in the
+// latest hour count; each hour is replaced by the mean of itself and its
+// two neighbours when all three are present and contiguous (a 3-hour running
+// mean: it keeps 97 % of a 24-hour cycle's amplitude and divides white noise
+// by √3). The swing is the smaller of the largest rise (a later value above
+// an earlier one) and the largest fall: a steady trend, a step or a
+// staircase of daytime warming gives one of them only. Missing hours can
+// only hide a swing. noisePerH is the RMS noise of the hour-to-hour change
+// (IceSignals.NoiseCPerH), √2 times that of one hourly mean.
+func (s *Site) dielSwing(from, at time.Time, noisePerH float64) (swing, limit float64) {
+	lo, hi := len(s.st.Hours), len(s.st.Hours)
+	for i := len(s.st.Hours) - 1; i >= 0; i-- {
+		r := &s.st.Hours[i]
+		if r.Start.Before(from) {
+			break
+		}
+		if !r.Start.Before(at) {
+			hi = i
+		}
+		lo = i
+	}
+	z := 0.0
+	for i := hi - 1; i >= lo; i-- {
+		if r := &s.st.Hours[i]; r.TopOK && r.TopZ > 0 {
+			z = r.TopZ
+			break
+		}
+	}
+	if z == 0 {
+		return 0, 0
+	}
+	use := func(i int) bool {
+		r := &s.st.Hours[i]
+		return i >= lo && i < hi && r.TopOK && r.TopZ == z
+	}
+	var minSeen, maxSeen, rise, fall float64
+	n := 0
+	for i := lo + 1; i < hi-1; i++ {
+		if !use(i-1) || !use(i) || !use(i+1) ||
+			s.st.Hours[i].Start.Sub(s.st.Hours[i-1].Start) != time.Hour || s.st.Hours[i+1].Start.Sub(s.st.Hours[i].Start) != time.Hour {
+			continue
+		}
+		v := (s.st.Hours[i-1].Top + s.st.Hours[i].Top + s.st.Hours[i+1].Top) / 3
+		if n > 0 {
+			rise, fall = math.Max(rise, v-minSeen), math.Max(fall, maxSeen-v)
+			minSeen, maxSeen = math.Min(minSeen, v), math.Max(maxSeen, v)
+		} else {
+			minSeen, maxSeen = v, v
+		}
+		n++
+	}
+	return math.Min(rise, fall), dielLimit(z, noisePerH/math.Sqrt2)
+}
+
+// dielLimit is the largest two-way swing (°C) of the top sensor at depth z
+// (m) that ice cover allows: IceDielSwingCM/z, combined in quadrature with
+// dielNoiseZ standard deviations of the white noise of one hourly mean
+// (sigmaH, °C). The depth is taken as at least dielMinDepth.
+func dielLimit(z, sigmaH float64) float64 {
+	return math.Hypot(IceDielSwingCM/math.Max(z, dielMinDepth), dielNoiseZ*sigmaH)
 }
 
 // stepIce runs the ice detector at the end of an hour (data time at).
 //
 // Ice on: for IceHold, every hourly 24-hour window shows the top at least
 // InverseDeltaT colder than the bottom (Pierson et al. 2011), a damped top
-// sensor, a calm column and a top colder than iceGateC. The onset is
+// sensor, a calm column, a top colder than iceGateC and no day-night swing
+// of the top sensor larger than ice allows at its depth (IceDielSwingCM).
+// The onset is
 // estimated as the start of the first window of the sheltered spell that
 // led to it (see shelteredSince): the calm is the direct signature of the
 // ice lid, while the gradient can take days to reach InverseDeltaT at the
@@ -423,7 +550,7 @@ func (s *Site) stepIce(ev *evCtx, at time.Time) {
 	var evidence string
 	if !ic.On {
 		cond = sig.TopMinusBottomC <= -dT && sig.TopChangeCPerH <= IceTopChangeMaxCPerH &&
-			sig.ActivityCPerH <= IceActivityMaxCPerH && sig.TopC < s.gateC
+			sig.ActivityCPerH <= IceActivityMaxCPerH && sig.TopC < s.gateC && !sig.openWaterDiel()
 	} else {
 		calm := sig.TopChangeCPerH <= IceTopChangeMaxCPerH && sig.ActivityCPerH <= IceActivityMaxCPerH
 		gone := sig.TopMinusBottomC > -dT*(1-h) && !calm
@@ -466,8 +593,8 @@ func (s *Site) stepIce(ev *evCtx, at time.Time) {
 		e := s.iceEvent(ev, KindIceOn, sig, onset,
 			fmt.Sprintf("%s: ice cover inferred from water temperatures since about %s (thickness unknown).", s.name(), clock(onset)))
 		e.From, e.To = s.seasonalBelowIce(), SeasonIce
-		e.Details["evidence"] = fmt.Sprintf("top %.2f °C colder than bottom, top sensor change %.3f °C/h (limit %.3g), column activity %.3f °C/h (limit %.3g), top %.2f °C below %.2f °C, all held for %s",
-			-sig.TopMinusBottomC, sig.TopChangeCPerH, IceTopChangeMaxCPerH, sig.ActivityCPerH, IceActivityMaxCPerH, sig.TopC, s.gateC, hours(s.cfg.IceHold))
+		e.Details["evidence"] = fmt.Sprintf("top %.2f °C colder than bottom, top sensor change %.3f °C/h (limit %.3g), column activity %.3f °C/h (limit %.3g), top %.2f °C below %.2f °C, top day-night swing %.3f °C (limit %.3f °C at its depth), all held for %s",
+			-sig.TopMinusBottomC, sig.TopChangeCPerH, IceTopChangeMaxCPerH, sig.ActivityCPerH, IceActivityMaxCPerH, sig.TopC, s.gateC, sig.DielSwingC, sig.DielSwingMaxC, hours(s.cfg.IceHold))
 		if !onset.After(first) {
 			e.Details["note"] = note
 		}
@@ -501,8 +628,9 @@ func (s *Site) stepIce(ev *evCtx, at time.Time) {
 // shelteredSince walks back from the end of the first window that met every
 // ice-on condition (first) over the earlier hourly windows, as long as each
 // was sheltered: a damped top sensor and a calm column (both within their
-// ice limits), a top colder than iceGateC, and the top no warmer than the
-// bottom (the inverse gradient developing but not yet InverseDeltaT). It
+// ice limits), a top colder than iceGateC, no open-water day-night swing of
+// the top sensor (IceDielSwingCM), and the top no warmer than the bottom
+// (the inverse gradient developing but not yet InverseDeltaT). It
 // returns the end of the earliest window of that unbroken spell.
 //
 // Why: under a new ice lid the wind stops stirring the water at once, but a
@@ -525,7 +653,7 @@ func (s *Site) shelteredSince(first time.Time) time.Time {
 		}
 		sig := s.iceSignals(prev)
 		if !sig.OK || sig.TopMinusBottomC > 0 || sig.TopChangeCPerH > IceTopChangeMaxCPerH ||
-			sig.ActivityCPerH > IceActivityMaxCPerH || sig.TopC >= s.gateC {
+			sig.ActivityCPerH > IceActivityMaxCPerH || sig.TopC >= s.gateC || sig.openWaterDiel() {
 			return a
 		}
 		a = prev

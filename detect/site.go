@@ -87,6 +87,20 @@ type IceSignals struct {
 	// removed from TopChangeCPerH and ActivityCPerH (see noiseRemoved); 0
 	// without sub-hourly data (see noiseStep).
 	NoiseCPerH float64
+	// DielSwingC is the top sensor's two-way day-night swing, °C: the
+	// smaller of its largest rise and its largest fall within the 24 hours
+	// (3-hour running means of the hourly means), large when open water
+	// warms by day and cools by night. DielSwingMaxC is the largest swing
+	// that ice cover allows at the top sensor's depth and noise (see
+	// IceDielSwingCM); a larger one rules ice out.
+	DielSwingC    float64
+	DielSwingMaxC float64
+}
+
+// openWaterDiel reports whether the top sensor's day-night swing rules ice
+// cover out (see IceDielSwingCM).
+func (sig IceSignals) openWaterDiel() bool {
+	return sig.DielSwingMaxC > 0 && sig.DielSwingC > sig.DielSwingMaxC
 }
 
 // Site follows one lake through the seasons. It is not safe for concurrent

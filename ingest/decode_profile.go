@@ -1,6 +1,8 @@
 package ingest
 
 import (
+	"bytes"
+	"slices"
 	"time"
 )
 
@@ -129,6 +131,8 @@ func (d *profileDecoder) arrays(depths, temps []byte, u unit, site, sensor strin
 		}
 		return dst, decErr(ReasonBadShape, "%q is %s, want an array", d.f.temps, kindOf(temps))
 	}
+	// One allocation for the profile: about as many readings as commas.
+	dst = slices.Grow(dst, min(bytes.Count(temps, []byte{','})+1, MaxReadingsPerMessage))
 	for i := 0; ; i++ {
 		dv, dok := de.next()
 		tvv, tok := te.next()

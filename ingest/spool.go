@@ -12,6 +12,8 @@ import (
 
 	"github.com/influxdata/influxdb-client-go/v2/api/write"
 	bolt "go.etcd.io/bbolt"
+
+	"holomix/internal/mmtrim"
 )
 
 // The spool is the durable queue between the broker and the database. It is a
@@ -639,6 +641,10 @@ func (s *Spool) trimReadings(tx *bolt.Tx, m *spoolMeta) error {
 	}
 	return nil
 }
+
+// TrimResident drops the pages of the spool file the process has mapped
+// from its resident set (they stay in the page cache); see mmtrim.
+func (s *Spool) TrimResident() error { return mmtrim.Trim(s.db) }
 
 // SpoolStats is a snapshot of the spool's bookkeeping.
 type SpoolStats struct {

@@ -26,7 +26,7 @@ file: detector thresholds, alert receivers and the log level apply at once,
 other changes are logged as needing a restart.
 
 Memory: the daemon sets a soft memory limit of storage.memory_limit (default
-128MiB, enough for 1,000 sites of 30 sensors; 0 means none). The GOMEMLIMIT
+112MiB, enough for 1,000 sites of 30 sensors; 0 means none). The GOMEMLIMIT
 environment variable, when set, takes precedence.`
 
 func runDaemon(ctx context.Context, e *env, args []string) int {

@@ -58,6 +58,7 @@ type options struct {
 	parts       map[string]bool
 	latencyRate float64 // msgs/s when the throughput part is skipped
 	batch       int     // influx.batch_size of B (0: the default, 5000)
+	inFlight    int     // influx.writes_in_flight of B (0: the default, 2)
 }
 
 func main() {
@@ -65,8 +66,8 @@ func main() {
 	var inflights, parts string
 	flag.StringVar(&o.out, "out", "", "directory for raw outputs (default bench-out/DATE-TIME under the repository)")
 	flag.IntVar(&o.rounds, "rounds", 5, "A/B rounds per workload and broker setting")
-	flag.IntVar(&o.single, "single", 120000, "readings per round with one reading per message (100 sites × 24 depths)")
-	flag.IntVar(&o.profile, "profile", 240000, "readings per round with one 24-depth profile per message (100 sites)")
+	flag.IntVar(&o.single, "single", 120000, "readings per round with one reading per message (100 sites × 24 depths; 0 skips this workload)")
+	flag.IntVar(&o.profile, "profile", 240000, "readings per round with one 24-depth profile per message (100 sites; 0 skips this workload)")
 	flag.StringVar(&inflights, "inflight", "20,1000", "broker max_inflight_messages settings to run (20 is Mosquitto's default, 1000 what deploy/mosquitto.conf recommends)")
 	flag.DurationVar(&o.latencyFor, "latency-for", 45*time.Second, "how long to publish during the alert-latency measurement")
 	flag.Float64Var(&o.latencyRate, "latency-rate", 0, "messages/s for the latency measurement (0: half the measured B profile rate)")
@@ -74,6 +75,7 @@ func main() {
 	flag.IntVar(&o.rssDepths, "rss-depths", 30, "depths per site for the memory measurement")
 	flag.IntVar(&o.rssSteps, "rss-steps", 24, "profiles per site for the memory measurement")
 	flag.IntVar(&o.batch, "batch", 0, "influx.batch_size for holomix (0: its default, 5000); also the bare pipeline's batch size when set")
+	flag.IntVar(&o.inFlight, "writes-in-flight", 0, "influx.writes_in_flight for holomix (0: its default, 2)")
 	flag.StringVar(&parts, "parts", "throughput,latency,rss,pprof,replay", "parts to run (pprof: CPU profiles of B in-process)")
 	flag.Parse()
 	o.parts = map[string]bool{}
@@ -199,6 +201,9 @@ func run(ctx context.Context, o options) error {
 	if o.parts["pprof"] && ctx.Err() == nil {
 		t0 := time.Now().UTC().Add(-60 * 24 * time.Hour).Truncate(24 * time.Hour)
 		for _, w := range []workload{makeWorkload(false, o.single, t0), makeWorkload(true, o.profile, t0)} {
+			if w.readings == 0 {
+				continue
+			}
 			if err := b.cpuProfile(ctx, w, 1000); err != nil {
 				errs = append(errs, fmt.Errorf("cpu profile %s: %w", w.name, err))
 			}
@@ -263,7 +268,7 @@ func makeWorkload(profile bool, n int, t0 time.Time) workload {
 	s := rig.Stream{Prefix: "bench", Sites: 100, SitePrefix: "lake", Depths: rig.Depths(24, 0.5, 1), T0: t0,
 		Stratified: true, IntakeDepth: 5, TriggerEvery: 15, TriggerSites: 5}
 	perStep := s.Sites * len(s.Depths)
-	steps := max(1, (n+perStep-1)/perStep)
+	steps := (n + perStep - 1) / perStep
 	w := workload{stream: s, readings: steps * perStep}
 	for k := 0; k < steps; k++ {
 		if profile {
@@ -298,7 +303,12 @@ func prequeue(ctx context.Context, broker string, id string, msgs []rig.Msg) (fl
 
 func (b *bench) throughput(ctx context.Context) error {
 	t0 := time.Now().UTC().Add(-60 * 24 * time.Hour).Truncate(24 * time.Hour)
-	works := []workload{makeWorkload(false, b.o.single, t0), makeWorkload(true, b.o.profile, t0)}
+	var works []workload
+	for _, w := range []workload{makeWorkload(false, b.o.single, t0), makeWorkload(true, b.o.profile, t0)} {
+		if w.readings > 0 { // -single 0 or -profile 0 skips that workload
+			works = append(works, w)
+		}
+	}
 	// The database alone: the same readings as line protocol, no broker.
 	for _, w := range works {
 		lines := lineProtocol(w)
@@ -426,6 +436,11 @@ func (b *bench) runA(ctx context.Context, mq *testenv.Mosquitto, w workload, inf
 // daemonFor prepares a daemon for db with w's sites and subscription.
 func (b *bench) daemonFor(mq *testenv.Mosquitto, name, db string, w workload) (*rig.Daemon, error) {
 	dir := filepath.Join(b.out, "runs", name)
+	// A run starts from an empty storage directory (an -out reused from an
+	// earlier run would otherwise restore its state and its alert episodes).
+	if err := os.RemoveAll(dir); err != nil {
+		return nil, err
+	}
 	if err := os.MkdirAll(dir, 0o755); err != nil {
 		return nil, err
 	}
@@ -435,7 +450,7 @@ func (b *bench) daemonFor(mq *testenv.Mosquitto, name, db string, w workload) (*
 	}
 	cfg := rig.DaemonConfig{Broker: mq.URL, ClientID: "holomix-bench-" + db,
 		Subscriptions: []rig.Subscription{{Topic: w.filter, Format: w.format, Template: w.template}},
-		InfluxURL:     b.in.URL, Bucket: db + "/autogen", InfluxBatchSize: b.o.batch, Dir: filepath.Join(dir, "data"), Sites: rig.SitesOf(w.stream),
+		InfluxURL:     b.in.URL, Bucket: db + "/autogen", InfluxBatchSize: b.o.batch, InfluxInFlight: b.o.inFlight, Dir: filepath.Join(dir, "data"), Sites: rig.SitesOf(w.stream),
 		HookURL: b.hook.URL(), HookSecretEnv: "HOLOMIX_BENCH_HOOK_SECRET", HTTPListen: fmt.Sprintf("127.0.0.1:%d", port)}
 	path := filepath.Join(dir, "holomix.yaml")
 	if err := os.WriteFile(path, []byte(cfg.YAML()), 0o600); err != nil {

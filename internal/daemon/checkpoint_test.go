@@ -139,20 +139,89 @@ func TestCheckpointMigratesSingleDocument(t *testing.T) {
 	if d2.saved.eng != 0 || d2.saved.qc != 1 {
 		t.Fatalf("sequences %d/%d, want 0/1", d2.saved.eng, d2.saved.qc)
 	}
+
+	// The per-site form of the previous version (format 2: chunks stored
+	// uncompressed) is read too, and the next checkpoint compresses it.
+	err = d2.state.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bktCheckpoint)
+		for _, name := range ckBuckets {
+			nb := b.Bucket(name)
+			plain := map[string][]byte{}
+			if err := nb.ForEach(func(k, v []byte) error {
+				c, err := inflate(v)
+				if err != nil {
+					return err
+				}
+				if len(v) >= len(c) && len(c) > 200 {
+					t.Errorf("chunk %s/%s stored in %d bytes, %d uncompressed", name, k, len(v), len(c))
+				}
+				plain[string(k)] = c
+				return nil
+			}); err != nil {
+				return err
+			}
+			for k, v := range plain {
+				if err := nb.Put([]byte(k), v); err != nil {
+					return err
+				}
+			}
+		}
+		return b.Put(keyFormat, be64(checkpointFormatPlain))
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	d2.closeAll()
+	d3, err := open(Options{Config: cfg})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer d3.closeAll()
+	if got, _ := d3.eng.Snapshot(); !bytes.Equal(got, engDoc) {
+		t.Fatal("detection state differs after reading the uncompressed per-site format")
+	}
+	if got, _, _, _ := d3.com.Snapshot(); !bytes.Equal(got, wantQC) {
+		t.Fatal("quality-control memory differs after reading the uncompressed per-site format")
+	}
+	d3.fed++ // something to save
+	if took := d3.checkpoint(); took == 0 {
+		t.Fatal("no checkpoint written after the format-2 start")
+	}
+	_ = d3.state.View(func(tx *bolt.Tx) error {
+		if f := u64(tx.Bucket(bktCheckpoint).Get(keyFormat)); f != checkpointFormat {
+			t.Errorf("format %d after the rewrite, want %d", f, checkpointFormat)
+		}
+		return nil
+	})
 }
 
 // TestApplyMemoryLimit: storage.memory_limit becomes the runtime's soft
-// limit unless GOMEMLIMIT is set; the previous limit comes back afterwards.
+// limit unless GOMEMLIMIT is set, with the GC growth factor raised unless
+// GOGC is set; the previous settings come back afterwards.
 func TestApplyMemoryLimit(t *testing.T) {
 	before := debug.SetMemoryLimit(-1)
 	t.Setenv("GOMEMLIMIT", "")
+	t.Setenv("GOGC", "")
+	gcBefore := debug.SetGCPercent(100)
+	debug.SetGCPercent(gcBefore)
 	restore := applyMemoryLimit(300<<20, nil)
 	if got := debug.SetMemoryLimit(-1); got != 300<<20 {
 		t.Errorf("limit %d, want %d", got, 300<<20)
 	}
+	if got := debug.SetGCPercent(gcPercentUnderLimit); got != gcPercentUnderLimit {
+		t.Errorf("GC percent %d under the limit, want %d", got, gcPercentUnderLimit)
+	}
 	restore()
 	if got := debug.SetMemoryLimit(-1); got != before {
 		t.Errorf("limit %d after restore, want %d", got, before)
+	}
+	if got := debug.SetGCPercent(gcBefore); got != gcBefore {
+		t.Errorf("GC percent %d after restore, want %d", got, gcBefore)
+	}
+	t.Setenv("GOGC", "150") // an explicit GOGC wins
+	applyMemoryLimit(300<<20, nil)()
+	if got := debug.SetGCPercent(gcBefore); got != gcBefore {
+		t.Errorf("GC percent %d with GOGC set, want it untouched (%d)", got, gcBefore)
 	}
 	applyMemoryLimit(0, nil)() // no limit configured: nothing changes
 	if got := debug.SetMemoryLimit(-1); got != before {

@@ -18,12 +18,14 @@ package daemon
 
 import (
 	"bytes"
+	"compress/flate"
 	"context"
 	"crypto/tls"
 	"encoding/binary"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"iter"
 	"log/slog"
 	"net"
@@ -31,6 +33,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime/debug"
+	"strconv"
 	"strings"
 	"sync"
 	"syscall"
@@ -48,6 +51,7 @@ import (
 	"holomix/ingest"
 	"holomix/internal/engine"
 	"holomix/internal/httpauth"
+	"holomix/internal/mmtrim"
 	"holomix/internal/status"
 )
 
@@ -56,6 +60,11 @@ const (
 	DefaultCheckpointInterval = 5 * time.Second
 	// shutdownBudget is the time Run takes at most to drain after ctx ends.
 	shutdownBudget = 5 * time.Second
+	// trimEvery is the period of trimLoop.
+	trimEvery = 250 * time.Millisecond
+	// gcPercentUnderLimit is the collector's growth factor while a memory
+	// limit is in force (applyMemoryLimit).
+	gcPercentUnderLimit = 400
 	// maxCheckpointStretch bounds the stretched checkpoint interval (feedLoop).
 	maxCheckpointStretch = time.Minute
 	feedChunk            = 4096
@@ -172,6 +181,12 @@ type daemon struct {
 	// start, after a failed checkpoint and after a detection reload)
 	// instead of only the sites that changed since the last one.
 	ckFull bool
+	// ckBusy: a checkpoint write is in flight (startCheckpoint); its result
+	// arrives on ckDone. ckTook is what the last checkpoint took.
+	ckBusy bool
+	ckDone chan ckResult
+	ckTook time.Duration
+	ckZ    *flate.Writer // reused by deflate (feed goroutine)
 
 	hmu      sync.Mutex // guards the cached delivery counts and spool probe
 	hAt      time.Time
@@ -256,8 +271,22 @@ func applyMemoryLimit(limit int64, log *slog.Logger) (restore func()) {
 		return func() {}
 	}
 	prev := debug.SetMemoryLimit(limit)
-	log.Info("memory limit", "limit_bytes", limit, "limit_mib", limit>>20, "from", "storage.memory_limit")
-	return func() { debug.SetMemoryLimit(prev) }
+	// With a limit in force the collector may let the heap grow further
+	// between cycles (GOGC 400: up to 5× the live heap) and spend far less
+	// CPU, since the limit, not the growth factor, bounds memory; the Go GC
+	// guide (go.dev/doc/gc-guide, "Memory limit") describes this pairing.
+	// An explicit GOGC environment variable wins.
+	prevGC, gc := -1, "GOGC"
+	if env, ok := os.LookupEnv("GOGC"); !ok || env == "" {
+		prevGC, gc = debug.SetGCPercent(gcPercentUnderLimit), strconv.Itoa(gcPercentUnderLimit)
+	}
+	log.Info("memory limit", "limit_bytes", limit, "limit_mib", limit>>20, "from", "storage.memory_limit", "gc_percent", gc)
+	return func() {
+		debug.SetMemoryLimit(prev)
+		if prevGC >= 0 {
+			debug.SetGCPercent(prevGC)
+		}
+	}
 }
 
 func open(o Options) (d *daemon, err error) {
@@ -274,7 +303,8 @@ func open(o Options) (d *daemon, err error) {
 		o.CheckpointInterval = DefaultCheckpointInterval
 	}
 	cfg := o.Config
-	d = &daemon{o: o, cfg: cfg, log: o.Logger, reg: o.Registry, ckInt: o.CheckpointInterval, feedWake: make(chan struct{}, 1), ckFull: true}
+	d = &daemon{o: o, cfg: cfg, log: o.Logger, reg: o.Registry, ckInt: o.CheckpointInterval, feedWake: make(chan struct{}, 1), ckFull: true,
+		ckDone: make(chan ckResult, 1)}
 	d.dir = cfg.Storage.Dir
 	if d.dir == "" {
 		return nil, errors.New("daemon: storage.dir is empty")
@@ -544,21 +574,41 @@ func (d *daemon) restore() error {
 			return nil
 		}
 		d.saved.eng, d.saved.qc = u64(b.Get(keyEngineSeq)), u64(b.Get(keyQCSeq))
-		if f := u64(b.Get(keyFormat)); f != checkpointFormat {
-			if b.Get(keyFormat) != nil {
-				return fmt.Errorf("checkpoint format %d, this version reads %d (and the earlier single-document one)", f, checkpointFormat)
-			}
+		f := u64(b.Get(keyFormat))
+		switch {
+		case b.Get(keyFormat) == nil:
 			return d.restoreLegacy(b, &hasEng, &replayed)
+		case f != checkpointFormat && f != checkpointFormatPlain:
+			return fmt.Errorf("checkpoint format %d, this version reads %d, %d and the earlier single-document one", f, checkpointFormat, checkpointFormatPlain)
+		}
+		var zerr error // the first chunk that did not decompress
+		chunks := func(name []byte) iter.Seq2[string, []byte] {
+			if f == checkpointFormatPlain {
+				return chunksOf(b, name)
+			}
+			return func(yield func(string, []byte) bool) {
+				for site, z := range chunksOf(b, name) {
+					c, err := inflate(z)
+					if err != nil {
+						zerr = fmt.Errorf("state of site %q in %s: %w", site, name, err)
+						return
+					}
+					if !yield(site, c) {
+						return
+					}
+				}
+			}
 		}
 		if head := b.Get(keyEngineHead); head != nil {
 			hasEng = true
-			if err := d.eng.RestoreChunks(head, chunksOf(b, bktEngineSites)); err != nil {
+			err := d.eng.RestoreChunks(head, chunks(bktEngineSites))
+			if err = errors.Join(zerr, err); err != nil {
 				return fmt.Errorf("%w (move state.db away to start detection afresh)", err)
 			}
 		}
 		var err error
-		replayed, err = d.com.RestoreChunks(chunksOf(b, bktQCSites), chunksOf(b, bktDupSites), d.saved.qc)
-		if err != nil {
+		replayed, err = d.com.RestoreChunks(chunks(bktQCSites), chunks(bktDupSites), d.saved.qc)
+		if err = errors.Join(zerr, err); err != nil {
 			return fmt.Errorf("restore quality control: %w", err)
 		}
 		return nil
@@ -678,6 +728,9 @@ func (d *daemon) run(ctx context.Context) error {
 		wrDone <- d.wr.Run(wrCtx)
 	}()
 	d.startAlerts()
+	trimCtx, trimCancel := context.WithCancel(context.Background())
+	trimDone := make(chan struct{})
+	go func() { defer close(trimDone); d.trimLoop(trimCtx) }()
 	subCtx, subCancel := context.WithCancel(context.Background())
 	d.sub.Start(subCtx)
 	if d.o.OnReady != nil {
@@ -707,6 +760,8 @@ func (d *daemon) run(ctx context.Context) error {
 	}
 	start := time.Now()
 	deadline := start.Add(shutdownBudget - 250*time.Millisecond)
+	trimCancel()
+	<-trimDone
 
 	// 1. Stop taking messages; commit and acknowledge what is in flight; disconnect.
 	d.sub.StopIntake()
@@ -749,6 +804,31 @@ func (d *daemon) run(ctx context.Context) error {
 	return runErr
 }
 
+// trimLoop keeps the pages of the spool, state and outbox files that the
+// daemon has read out of its resident set, every trimEvery (see mmtrim: the
+// page cache keeps them, the resident set size stays that of the daemon's
+// own memory).
+func (d *daemon) trimLoop(ctx context.Context) {
+	t := time.NewTicker(trimEvery)
+	defer t.Stop()
+	logged := false
+	for {
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+		errs := []error{d.spool.TrimResident(), mmtrim.Trim(d.state)}
+		if disp := d.dispatcher(); disp != nil {
+			errs = append(errs, disp.TrimResident())
+		}
+		if err := errors.Join(errs...); err != nil && !logged {
+			logged = true // once: trimming is an economy, not a duty
+			d.log.Warn("dropping mapped file pages from memory failed", "err", err)
+		}
+	}
+}
+
 func (d *daemon) closeAll() {
 	if d.wr != nil {
 		d.wr.Close()
@@ -770,9 +850,12 @@ func (d *daemon) closeAll() {
 // than about 5 % of the time, but to at most maxCheckpointStretch: a
 // checkpoint that waited for the committer (whose commits a full disk keeps
 // failing) must not postpone the next one for long, since the spool deletes
-// readings only below a checkpoint and stays full without one.
+// readings only below a checkpoint and stays full without one. The state is
+// encoded here and written by another goroutine (startCheckpoint), so a slow
+// fsync of state.db delays no detection and no alert.
 func (d *daemon) feedLoop(ctx context.Context) error {
 	d.sink.ctx = ctx
+	defer d.waitCheckpoint()
 	ext, reload := d.o.Air, d.o.Reload
 	timer := time.NewTimer(d.ckInt)
 	defer timer.Stop()
@@ -788,6 +871,8 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 			d.checkpoint()
 			return nil
 		case <-d.feedWake:
+		case r := <-d.ckDone:
+			d.applyCheckpoint(r)
 		case nc, ok := <-reload:
 			if ok {
 				if err := d.feedAll(ctx); err != nil {
@@ -809,8 +894,8 @@ func (d *daemon) feedLoop(ctx context.Context) error {
 			if err := d.feedAll(ctx); err != nil {
 				return err
 			}
-			took := d.checkpoint()
-			timer.Reset(max(d.ckInt, min(20*took, maxCheckpointStretch)))
+			d.startCheckpoint()
+			timer.Reset(max(d.ckInt, min(20*d.ckTook, maxCheckpointStretch)))
 		}
 	}
 }
@@ -909,65 +994,188 @@ var (
 	bktDupSites    = []byte("dup_sites")
 )
 
-// checkpointFormat is the value of the format key: per-site state.
-const checkpointFormat = 2
+// checkpointFormat is the value of the format key: per-site state, each
+// chunk compressed (deflate). Format 2, the same uncompressed, is still
+// read; the first checkpoint after start rewrites every chunk.
+const (
+	checkpointFormat      = 3
+	checkpointFormatPlain = 2
+)
 
 // checkpoint saves the engine's state (at d.fed) and the QC and duplicate
 // memory (at their own, later or equal, sequence) in one transaction, then
-// lets the spool delete below the smaller of the two. Only the sites whose
-// state changed since the last checkpoint are written (every site after
-// start or a failure), each encoded on its own, so the memory a checkpoint
-// needs is what those sites' state takes, not a copy of the whole state.
+// lets the spool delete below the smaller of the two, and returns what it
+// took. Only the sites whose state changed since the last checkpoint are
+// written (every site after start or a failure), each encoded on its own.
+// It runs on the feed goroutine and waits for the write; feedLoop uses
+// startCheckpoint, which leaves the write to another goroutine.
 func (d *daemon) checkpoint() time.Duration {
-	qcSeq := d.com.LastSeq()
-	if d.fed == d.saved.eng && qcSeq == d.saved.qc {
+	d.waitCheckpoint()
+	job, err := d.encodeCheckpoint()
+	if job == nil {
+		if err != nil {
+			d.applyCheckpoint(ckResult{err: err, took: 0})
+		}
 		return 0
 	}
-	start := time.Now()
-	full := d.ckFull
-	var qseq uint64
-	var written, sites int
+	r := d.writeCheckpoint(job)
+	d.applyCheckpoint(r)
+	return r.took
+}
+
+// startCheckpoint encodes a checkpoint on the feed goroutine and writes it
+// on another, so that detection (and the alerts it raises) does not wait
+// for the state file's write and fsync. At most one write is in flight: a
+// tick that finds one still running does nothing.
+func (d *daemon) startCheckpoint() {
+	if d.ckBusy {
+		return
+	}
+	job, err := d.encodeCheckpoint()
+	if job == nil {
+		if err != nil {
+			d.applyCheckpoint(ckResult{err: err})
+		}
+		return
+	}
+	d.ckBusy = true
+	go func() { d.ckDone <- d.writeCheckpoint(job) }()
+}
+
+// waitCheckpoint applies the write in flight, if any (feed goroutine).
+func (d *daemon) waitCheckpoint() {
+	if d.ckBusy {
+		d.applyCheckpoint(<-d.ckDone)
+	}
+}
+
+// ckJob is a checkpoint encoded on the feed goroutine: per-site chunks of
+// the engine, the QC memory and the duplicate memory (in the nested buckets
+// of ckBuckets' order), the engine's head, and the sequences they stand at.
+type ckJob struct {
+	full      bool
+	chunks    [3][]ckChunk
+	head      []byte
+	fed, qseq uint64
+	bytes     int
+	start     time.Time
+}
+
+type ckChunk struct {
+	site  string
+	chunk []byte
+}
+
+type ckResult struct {
+	job  *ckJob
+	err  error
+	took time.Duration
+}
+
+var ckBuckets = [3][]byte{bktEngineSites, bktQCSites, bktDupSites}
+
+// encodeCheckpoint collects what changed since the last checkpoint (nil, nil:
+// nothing did). The change records are reset: if the write fails, the next
+// checkpoint rewrites everything (applyCheckpoint sets ckFull).
+func (d *daemon) encodeCheckpoint() (*ckJob, error) {
+	qcSeq := d.com.LastSeq()
+	if d.fed == d.saved.eng && qcSeq == d.saved.qc {
+		return nil, nil
+	}
+	job := &ckJob{full: d.ckFull, fed: d.fed, start: time.Now()}
+	d.ckFull = false // this job rewrites everything if needed; a failure sets it again
+	collect := func(i int) ingest.ChunkFunc {
+		return func(site string, chunk []byte) error {
+			z, err := d.deflate(chunk) // a copy: the caller reuses chunk
+			if err != nil {
+				return fmt.Errorf("checkpoint: compress the state of site %q: %w", site, err)
+			}
+			job.bytes += len(z)
+			job.chunks[i] = append(job.chunks[i], ckChunk{site, z})
+			return nil
+		}
+	}
+	head, err := d.eng.WriteStateChunks(job.full, collect(0))
+	if err != nil {
+		return nil, err
+	}
+	job.head = head
+	if job.qseq, err = d.com.WriteState(job.full, collect(1), collect(2)); err != nil {
+		return nil, err
+	}
+	if job.qseq < job.fed {
+		return nil, fmt.Errorf("quality-control memory at %d is behind detection at %d", job.qseq, job.fed)
+	}
+	return job, nil
+}
+
+// deflate compresses one state chunk (compress/flate, RFC 1951, fastest
+// level). Detector state is JSON and compresses several times over: the
+// checkpoint writes, fsyncs and maps that much less.
+func (d *daemon) deflate(chunk []byte) ([]byte, error) {
+	var out bytes.Buffer
+	out.Grow(len(chunk)/3 + 64)
+	if d.ckZ == nil {
+		z, err := flate.NewWriter(&out, flate.BestSpeed)
+		if err != nil {
+			return nil, err
+		}
+		d.ckZ = z
+	} else {
+		d.ckZ.Reset(&out)
+	}
+	if _, err := d.ckZ.Write(chunk); err != nil {
+		return nil, err
+	}
+	if err := d.ckZ.Close(); err != nil {
+		return nil, err
+	}
+	return out.Bytes(), nil
+}
+
+// inflate reverses deflate.
+func inflate(z []byte) ([]byte, error) {
+	r := flate.NewReader(bytes.NewReader(z))
+	defer r.Close()
+	out, err := io.ReadAll(r)
+	if err != nil {
+		return nil, fmt.Errorf("decompress: %w", err)
+	}
+	return out, nil
+}
+
+// writeCheckpoint stores job in state.db in one transaction and moves the
+// spool's checkpoint (any goroutine; state.db and the spool are safe for
+// concurrent use).
+func (d *daemon) writeCheckpoint(job *ckJob) ckResult {
 	err := d.state.Update(func(tx *bolt.Tx) error {
 		b, err := tx.CreateBucketIfNotExists(bktCheckpoint)
 		if err != nil {
 			return err
 		}
-		nested := make([]*bolt.Bucket, 3)
-		for i, name := range [][]byte{bktEngineSites, bktQCSites, bktDupSites} {
-			if full && b.Bucket(name) != nil {
+		for i, name := range ckBuckets {
+			if job.full && b.Bucket(name) != nil {
 				// Rewritten whole: drop sites that are gone.
 				if err := b.DeleteBucket(name); err != nil {
 					return err
 				}
 			}
-			if nested[i], err = b.CreateBucketIfNotExists(name); err != nil {
+			nb, err := b.CreateBucketIfNotExists(name)
+			if err != nil {
 				return err
 			}
-		}
-		putIn := func(nb *bolt.Bucket) ingest.ChunkFunc {
-			return func(site string, chunk []byte) error {
-				written += len(chunk)
-				sites++
-				// bbolt keeps the slice until the commit: the caller reuses chunk.
-				return nb.Put([]byte(site), bytes.Clone(chunk))
+			for _, c := range job.chunks[i] {
+				if err := nb.Put([]byte(c.site), c.chunk); err != nil {
+					return err
+				}
 			}
-		}
-		head, err := d.eng.WriteStateChunks(full, putIn(nested[0]))
-		if err != nil {
-			return err
-		}
-		if qseq, err = d.com.WriteState(full, putIn(nested[1]), putIn(nested[2])); err != nil {
-			return err
-		}
-		if qseq < d.fed {
-			return fmt.Errorf("quality-control memory at %d is behind detection at %d", qseq, d.fed)
 		}
 		for _, k := range [][]byte{keyEngine, keyQC, keyDups} {
 			if err := b.Delete(k); err != nil {
 				return err
 			}
 		}
-		for _, kv := range [][2][]byte{{keyEngineHead, head}, {keyEngineSeq, be64(d.fed)}, {keyQCSeq, be64(qseq)},
+		for _, kv := range [][2][]byte{{keyEngineHead, job.head}, {keyEngineSeq, be64(job.fed)}, {keyQCSeq, be64(job.qseq)},
 			{keyFormat, be64(checkpointFormat)}, {keySaved, be64(uint64(time.Now().UnixNano()))}} {
 			if err := b.Put(kv[0], kv[1]); err != nil {
 				return err
@@ -975,28 +1183,35 @@ func (d *daemon) checkpoint() time.Duration {
 		}
 		return nil
 	})
-	if err == nil {
-		d.saved.eng, d.saved.qc = d.fed, qseq
-		d.savedBytes = written
-		d.ckFull = false
-		err = d.spool.SetCheckpoint(min(d.fed, qseq))
+	if err != nil {
+		err = fmt.Errorf("state.db: %w", err)
 	} else {
+		err = d.spool.SetCheckpoint(min(job.fed, job.qseq))
+		// The state file's pages this write touched need not stay resident.
+		_ = mmtrim.Trim(d.state)
+	}
+	return ckResult{job: job, err: err, took: time.Since(job.start)}
+}
+
+// applyCheckpoint records the outcome of a checkpoint (feed goroutine).
+func (d *daemon) applyCheckpoint(r ckResult) {
+	d.ckBusy = false
+	if r.err != nil {
 		// The change records were reset: the next checkpoint writes everything.
 		d.ckFull = true
-		err = fmt.Errorf("state.db: %w", err)
-	}
-	if err != nil {
 		d.dm.checkpointErrors.Inc()
-		d.log.Error("checkpoint failed; the previous one stays valid", "err", err)
-		return time.Since(start)
+		d.log.Error("checkpoint failed; the previous one stays valid", "err", r.err)
+		return
 	}
-	took := time.Since(start)
+	job := r.job
+	d.saved.eng, d.saved.qc = job.fed, job.qseq
+	d.savedBytes = job.bytes
+	d.ckTook = r.took
 	d.dm.checkpoints.Inc()
-	d.dm.checkpointDur.Observe(took.Seconds())
+	d.dm.checkpointDur.Observe(r.took.Seconds())
 	d.dm.checkpointBytes.Set(float64(d.savedBytes))
-	d.log.Debug("checkpoint saved", "seq", d.fed, "qc_seq", d.saved.qc, "took", took, "bytes", d.savedBytes,
-		"chunks", sites, "full", full)
-	return took
+	d.log.Debug("checkpoint saved", "seq", job.fed, "qc_seq", job.qseq, "took", r.took, "bytes", job.bytes,
+		"chunks", len(job.chunks[0])+len(job.chunks[1])+len(job.chunks[2]), "full", job.full)
 }
 
 // engineSink receives what detection derives (on the feeder goroutine).
@@ -1019,9 +1234,7 @@ func (s *engineSink) Column(c detect.Column, p detect.Profile) {
 	if s.d.o.Tap != nil {
 		s.d.o.Tap.Column(c, p)
 	}
-	if l := lineOf(engine.ColumnPoint(c)); len(l) > 0 {
-		s.lines = append(s.lines, l)
-	}
+	s.lines = append(s.lines, engine.AppendColumnLine(nil, c))
 	if s.d.store != nil {
 		s.d.store.ObserveColumn(c, p)
 	}

@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"strings"
@@ -333,4 +334,57 @@ func BenchmarkEngineAdd(b *testing.B) {
 		d := depths[i%24]
 		e.Add(ingest.Reading{Site: "p", Depth: d, Time: t0.Add(time.Duration(i/24) * time.Minute), TempC: 22 - 0.5*d})
 	}
+}
+
+// TestAppendColumnLineMatchesLibrary: the daemon's direct encoding of a
+// column point is byte for byte what the InfluxDB client library makes of
+// ColumnPoint (the library is the reference for line protocol here).
+func TestAppendColumnLineMatchesLibrary(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 11))
+	vals := []float64{0, -0.0, 1, -1, 3.98, 1e-7, 1.5e-5, 123456789, 1e20, 1e21, 1e22, -2.5e-300, math.MaxFloat64, math.SmallestNonzeroFloat64,
+		math.NaN(), math.Inf(1), math.Inf(-1)}
+	pick := func() float64 {
+		if rng.IntN(3) == 0 {
+			return vals[rng.IntN(len(vals))]
+		}
+		return (rng.Float64() - 0.3) * math.Pow(10, float64(rng.IntN(12)-6))
+	}
+	sites := []string{"larchmere", "Lake Tessary", "north basin, pier=2", `odd"name\x`, "tab\there"}
+	reasons := []string{"", `top 1.20 °C is "colder"`, `back\slash`, "plain reason, with comma = and spaces"}
+	for i := 0; i < 2000; i++ {
+		m := water.Metrics{SurfaceTempC: pick(), BottomTempC: pick(), MeanTempC: pick(), DensityDiff: pick(), SchmidtJM2: pick(),
+			ThermoclineM: pick(), MaxN2: pick(), HeatToTmdJM2: pick(), SensorsUsed: rng.IntN(3)}
+		if rng.IntN(2) == 0 {
+			m.TmdC = []float64{pick()}
+		}
+		c := detect.Column{Site: sites[rng.IntN(len(sites))], Time: t0.Add(time.Duration(rng.Int64N(1e15))), State: water.StateMixed,
+			Seasonal: "fall", Reason: reasons[rng.IntN(len(reasons))], Metrics: m, SensorsUsed: rng.IntN(40), SensorsExpected: 40,
+			IceInferred: rng.IntN(2) == 0}
+		for k := rng.IntN(3); k > 0; k-- {
+			c.Projections = append(c.Projections, detect.Projection{Name: []string{"days_to_tmd", "Days to ice"}[k%2], LowDays: pick(), HighDays: pick()})
+		}
+		want := strings.TrimSuffix(write.PointToLineProtocol(ColumnPoint(c), time.Nanosecond), "\n")
+		if got := string(AppendColumnLine(nil, c)); got != want {
+			t.Fatalf("column %d:\n got %s\nwant %s", i, got, want)
+		}
+	}
+}
+
+func BenchmarkColumnLine(b *testing.B) {
+	m := water.Metrics{SurfaceTempC: 20, BottomTempC: 8, MeanTempC: 12.5, DensityDiff: 1.5, TmdC: []float64{3.98},
+		SchmidtJM2: 250, ThermoclineM: 6.5, MaxN2: 0.002, HeatToTmdJM2: 1e8, SensorsUsed: 24}
+	c := detect.Column{Site: "larchmere", Time: t0, State: water.StateStratified, Seasonal: "stratified", Metrics: m,
+		Reason: "bottom water is 1.500 kg/m³ denser than the surface", Projections: []detect.Projection{{Name: "days_to_tmd", LowDays: 20, HighDays: 35}},
+		SensorsUsed: 24, SensorsExpected: 24}
+	b.Run("library", func(b *testing.B) {
+		for b.Loop() {
+			_ = write.PointToLineProtocol(ColumnPoint(c), time.Nanosecond)
+		}
+	})
+	b.Run("direct", func(b *testing.B) {
+		var buf []byte
+		for b.Loop() {
+			buf = AppendColumnLine(buf[:0], c)
+		}
+	})
 }

@@ -2,6 +2,7 @@ package engine
 
 import (
 	"math"
+	"strconv"
 	"strings"
 
 	"github.com/influxdata/influxdb-client-go/v2/api/write"
@@ -36,38 +37,108 @@ const (
 //
 // Non-finite numbers are omitted (InfluxDB rejects them).
 func ColumnPoint(c detect.Column) *write.Point {
+	p := write.NewPointWithMeasurement(MeasurementColumn).AddTag("site", c.Site).SetTime(c.Time.UTC())
+	columnFields(c, func(k string, v any) { p.AddField(k, v) })
+	return p
+}
+
+// AppendColumnLine appends the line protocol of ColumnPoint(c) (same
+// measurement, tag, fields, and a nanosecond timestamp; no trailing
+// newline) to b. It is what the daemon spools for every profile: encoding
+// straight into a buffer costs a fraction of building a write.Point and
+// formatting it (the client library formats each field through fmt).
+func AppendColumnLine(b []byte, c detect.Column) []byte {
+	b = append(b, MeasurementColumn+",site="...)
+	b = appendLPKey(b, c.Site)
+	b = append(b, ' ')
+	first := true
+	columnFields(c, func(k string, v any) {
+		if !first {
+			b = append(b, ',')
+		}
+		first = false
+		b = appendLPKey(b, k)
+		b = append(b, '=')
+		switch v := v.(type) {
+		case string:
+			b = append(b, '"')
+			for i := 0; i < len(v); i++ {
+				if v[i] == '\\' || v[i] == '"' {
+					b = append(b, '\\')
+				}
+				b = append(b, v[i])
+			}
+			b = append(b, '"')
+		case float64:
+			b = strconv.AppendFloat(b, v, 'g', -1, 64)
+		case int64:
+			b = strconv.AppendInt(b, v, 10)
+			b = append(b, 'i')
+		case bool:
+			b = strconv.AppendBool(b, v)
+		}
+	})
+	b = append(b, ' ')
+	return strconv.AppendInt(b, c.Time.UnixNano(), 10)
+}
+
+// appendLPKey escapes a tag value or field key for line protocol as the
+// client library does: comma, equals sign and space get a backslash; tab,
+// newline and carriage return become \t, \n and \r.
+func appendLPKey(b []byte, s string) []byte {
+	for i := 0; i < len(s); i++ {
+		switch c := s[i]; c {
+		case ',', '=', ' ':
+			b = append(b, '\\', c)
+		case '\n':
+			b = append(b, `\\n`...)
+		case '\r':
+			b = append(b, `\\r`...)
+		case '\t':
+			b = append(b, `\\t`...)
+		default:
+			b = append(b, c)
+		}
+	}
+	return b
+}
+
+// columnFields hands each field of a column's point to add (values are
+// string, float64, int64 or bool; non-finite numbers are skipped), in a
+// fixed order.
+func columnFields(c detect.Column, add func(k string, v any)) {
 	m := &c.Metrics
-	p := write.NewPointWithMeasurement(MeasurementColumn).
-		AddTag("site", c.Site).
-		AddField("state", string(c.State)).
-		AddField("seasonal", c.Seasonal).
-		AddField("sensors_used", int64(c.SensorsUsed)).
-		AddField("sensors_expected", int64(c.SensorsExpected)).
-		AddField("ice_inferred", c.IceInferred).
-		SetTime(c.Time.UTC())
-	defer p.SortTags()
+	add("state", string(c.State))
+	add("seasonal", c.Seasonal)
+	add("sensors_used", int64(c.SensorsUsed))
+	add("sensors_expected", int64(c.SensorsExpected))
+	add("ice_inferred", c.IceInferred)
 	if c.Reason != "" {
-		p.AddField("reason", c.Reason)
+		add("reason", c.Reason)
+	}
+	finite := func(k string, v float64) {
+		if !math.IsNaN(v) && !math.IsInf(v, 0) {
+			add(k, v)
+		}
 	}
 	if m.SensorsUsed > 0 {
-		addFinite(p, "surface_temp_c", m.SurfaceTempC)
-		addFinite(p, "bottom_temp_c", m.BottomTempC)
-		addFinite(p, "mean_temp_c", m.MeanTempC)
-		addFinite(p, "density_diff_kg_m3", m.DensityDiff)
+		finite("surface_temp_c", m.SurfaceTempC)
+		finite("bottom_temp_c", m.BottomTempC)
+		finite("mean_temp_c", m.MeanTempC)
+		finite("density_diff_kg_m3", m.DensityDiff)
 		if len(m.TmdC) > 0 {
-			addFinite(p, "tmd_c", m.TmdC[0])
+			finite("tmd_c", m.TmdC[0])
 		}
-		addFinite(p, "schmidt_j_m2", m.SchmidtJM2)
-		addFinite(p, "thermocline_m", m.ThermoclineM)
-		addFinite(p, "max_n2_s2", m.MaxN2)
-		addFinite(p, "heat_to_tmd_j_m2", m.HeatToTmdJM2)
+		finite("schmidt_j_m2", m.SchmidtJM2)
+		finite("thermocline_m", m.ThermoclineM)
+		finite("max_n2_s2", m.MaxN2)
+		finite("heat_to_tmd_j_m2", m.HeatToTmdJM2)
 	}
 	for _, pr := range c.Projections {
 		name := fieldName(pr.Name)
-		addFinite(p, name+"_low", pr.LowDays)
-		addFinite(p, name+"_high", pr.HighDays)
+		finite(name+"_low", pr.LowDays)
+		finite(name+"_high", pr.HighDays)
 	}
-	return p
 }
 
 // EventPoint returns the derived series point of one event: measurement

@@ -28,6 +28,7 @@ type DaemonConfig struct {
 	InfluxURL        string
 	Bucket           string
 	InfluxBatchSize  int    // influx.batch_size; 0: default (5000)
+	InfluxInFlight   int    // influx.writes_in_flight; 0: default (2)
 	Dir              string // storage.dir
 	SpoolMaxBytes    string // e.g. "1MiB"; "": default
 	MaxPayloadBytes  int    // 0: default
@@ -60,6 +61,9 @@ func (c DaemonConfig) YAML() string {
 		fmt.Fprintf(&b, "influx:\n  url: %s\n  bucket: %s\n", c.InfluxURL, c.Bucket)
 		if c.InfluxBatchSize > 0 {
 			fmt.Fprintf(&b, "  batch_size: %d\n", c.InfluxBatchSize)
+		}
+		if c.InfluxInFlight > 0 {
+			fmt.Fprintf(&b, "  writes_in_flight: %d\n", c.InfluxInFlight)
 		}
 	}
 	fmt.Fprintf(&b, "storage:\n  dir: %s\n", c.Dir)
