@@ -65,9 +65,9 @@ func main() {
 	var o options
 	var inflights, parts string
 	flag.StringVar(&o.out, "out", "", "directory for raw outputs (default bench-out/DATE-TIME under the repository)")
-	flag.IntVar(&o.rounds, "rounds", 5, "A/B rounds per workload and broker setting")
-	flag.IntVar(&o.single, "single", 120000, "readings per round with one reading per message (100 sites × 24 depths; 0 skips this workload)")
-	flag.IntVar(&o.profile, "profile", 240000, "readings per round with one 24-depth profile per message (100 sites; 0 skips this workload)")
+	flag.IntVar(&o.rounds, "rounds", 3, "A/B rounds per workload and broker setting")
+	flag.IntVar(&o.single, "single", 240000, "readings per round with one reading per message (100 sites × 24 depths; 0 skips this workload)")
+	flag.IntVar(&o.profile, "profile", 960000, "readings per round with one 24-depth profile per message (100 sites; 0 skips this workload)")
 	flag.StringVar(&inflights, "inflight", "20,1000", "broker max_inflight_messages settings to run (20 is Mosquitto's default, 1000 what deploy/mosquitto.conf recommends)")
 	flag.DurationVar(&o.latencyFor, "latency-for", 45*time.Second, "how long to publish during the alert-latency measurement")
 	flag.Float64Var(&o.latencyRate, "latency-rate", 0, "messages/s for the latency measurement (0: half the measured B profile rate)")

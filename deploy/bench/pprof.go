@@ -7,6 +7,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"runtime"
 	"runtime/pprof"
 	"time"
 
@@ -48,6 +49,16 @@ func (b *bench) cpuProfile(ctx context.Context, w workload, inflight int) error 
 	}})
 	if err != nil {
 		return err
+	}
+	// The memory limit is meant for a process of the daemon's own; this one
+	// also holds the benchmark's messages, so the run in it gets the limit
+	// on top of what this process holds already (else the collector would
+	// run without pause and the profile would show little but it).
+	if cfg.Storage.MemoryLimit > 0 {
+		runtime.GC()
+		var ms runtime.MemStats
+		runtime.ReadMemStats(&ms)
+		cfg.Storage.MemoryLimit += config.ByteSize(ms.Sys - ms.HeapReleased)
 	}
 	logf, err := os.Create(filepath.Join(b.out, "runs", name, "daemon.log"))
 	if err != nil {
