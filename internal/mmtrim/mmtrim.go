@@ -13,17 +13,23 @@
 package mmtrim
 
 import (
+	"errors"
 	"fmt"
 
 	bolt "go.etcd.io/bbolt"
+	berrors "go.etcd.io/bbolt/errors"
 )
 
 // Trim drops the resident pages of db's mapping from the process's page
 // tables. It holds a read transaction meanwhile, which keeps bbolt from
 // remapping the file under it (bbolt remaps only when no read transaction
-// is open), and covers the pages in use (the transaction's Size).
+// is open), and covers the pages in use (the transaction's Size). A closed
+// database is no error.
 func Trim(db *bolt.DB) error {
 	tx, err := db.Begin(false)
+	if errors.Is(err, berrors.ErrDatabaseNotOpen) {
+		return nil // closed meanwhile (a reload reopens the outbox): nothing mapped
+	}
 	if err != nil {
 		return fmt.Errorf("mmtrim: %w", err)
 	}

@@ -143,3 +143,18 @@ func TestTrimWhileFileGrows(t *testing.T) {
 	close(stop)
 	wg.Wait()
 }
+
+// TestTrimClosedDatabase: a database closed meanwhile (the daemon reopens
+// its outbox on reload) is no error.
+func TestTrimClosedDatabase(t *testing.T) {
+	db, err := bolt.Open(filepath.Join(t.TempDir(), "t.db"), 0o600, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := db.Close(); err != nil {
+		t.Fatal(err)
+	}
+	if err := Trim(db); err != nil {
+		t.Fatalf("trim of a closed database: %v", err)
+	}
+}
