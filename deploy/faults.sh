@@ -30,7 +30,7 @@ marker=$(mktemp)
 trap 'rm -f "$marker"' EXIT
 for target in $(go test -list '^Fuzz' ./ingest/ | grep '^Fuzz' || true); do
   log=$(mktemp)
-  if go test -run '^$' -fuzz "^${target}\$" -fuzztime "$FUZZTIME" ./ingest/ >"$log" 2>&1; then
+  if ./deploy/fuzz-one.sh "$target" "$FUZZTIME" "$log"; then
     echo "  $target: ok ($(grep -o 'execs: [0-9]*' "$log" | tail -1 | cut -d' ' -f2) executions)"
   else
     echo "  $target: FAILED"

@@ -54,7 +54,7 @@ log "systemd unit"
 # --- fuzzing (brief; deploy/faults.sh runs each target longer) ------------------
 log "fuzzing payload decoders, $FUZZTIME each"
 for target in $(go test -list '^Fuzz' ./ingest/ | grep '^Fuzz' || true); do
-  go test -run '^$' -fuzz "^${target}\$" -fuzztime "$FUZZTIME" ./ingest/ >/tmp/holomix-fuzz.log 2>&1 || { cat /tmp/holomix-fuzz.log; exit 1; }
+  ./deploy/fuzz-one.sh "$target" "$FUZZTIME" /tmp/holomix-fuzz.log || { cat /tmp/holomix-fuzz.log; exit 1; }
   echo "  $target ok"
 done
 
