@@ -27,14 +27,8 @@ import (
 	"holomix/internal/testenv"
 )
 
-func benchEnabled(t *testing.T) {
-	if os.Getenv("HOLOMIX_E2E_BENCH") != "1" {
-		t.Skip("set HOLOMIX_E2E_BENCH=1 to run the end-to-end throughput measurement")
-	}
-}
-
 // bareDrain measures a bare paho subscriber draining n queued messages.
-func bareDrain(t *testing.T, mq *testenv.Mosquitto, topic string, msgs []e2eMsg) float64 {
+func bareDrain(t testing.TB, mq *testenv.Mosquitto, topic string, msgs []e2eMsg) float64 {
 	t.Helper()
 	var got atomic.Int64
 	opts := mqtt.NewClientOptions().AddBroker(mq.URL).SetClientID("bare-counter").SetCleanSession(false).SetOrderMatters(false)
@@ -80,7 +74,7 @@ type drainResult struct {
 
 // daemonDrain publishes msgs while the daemon is stopped, starts it and
 // measures the drain.
-func daemonDrain(t *testing.T, e *e2eEnv, msgs []e2eMsg, readings int) drainResult {
+func daemonDrain(t testing.TB, e *e2eEnv, msgs []e2eMsg, readings int) drainResult {
 	t.Helper()
 	e.start() // creates the persistent session
 	e.term(5 * time.Second)
@@ -126,7 +120,7 @@ func daemonDrain(t *testing.T, e *e2eEnv, msgs []e2eMsg, readings int) drainResu
 
 // procMem returns the resident set size, its peak (VmHWM), and its
 // anonymous and file-backed parts, in MiB.
-func procMem(t *testing.T, pid int) (rss, hwm, anon, file float64) {
+func procMem(t testing.TB, pid int) (rss, hwm, anon, file float64) {
 	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/status", pid))
 	if err != nil {
 		t.Fatal(err)
@@ -182,34 +176,55 @@ func e2eManySites(sites, depths, steps int, t0 time.Time) []e2eMsg {
 	return out
 }
 
-func TestE2EThroughput(t *testing.T) {
-	benchEnabled(t)
+// BenchmarkE2EThroughput drains queued messages through a real Mosquitto
+// into holomix and a real InfluxDB, beside a bare paho subscriber that only
+// counts (the broker's ceiling), and logs the rates, commit and checkpoint
+// figures and the daemon's memory. Run it once per case:
+//
+//	go test -run '^$' -bench E2EThroughput -benchtime 1x -v ./internal/daemon/
+//
+// (HOLOMIX_E2E_BENCH_N sets the readings of the single-reading case,
+// default 100,000.)
+func BenchmarkE2EThroughput(b *testing.B) {
 	t0 := time.Now().UTC().Add(-60 * 24 * time.Hour).Truncate(time.Hour)
 	n := 100000
 	if v, err := strconv.Atoi(os.Getenv("HOLOMIX_E2E_BENCH_N")); err == nil && v > 0 {
 		n = v
 	}
-
-	t.Run("single", func(t *testing.T) {
-		for _, inflight := range []int{20, 1000} {
-			e := newE2E(t, e2eOpts{maxInflight: inflight})
-			msgs := e2eReadings(n, t0)
-			bare := bareDrain(t, e.mq, "lakes/+/temp", msgs)
-			r := daemonDrain(t, e, msgs, n)
-			t.Logf("max_inflight_messages %d: bare paho subscriber %.0f msgs/s; holomix %s", inflight, bare, r)
+	report := func(b *testing.B, r drainResult) {
+		b.ReportMetric(r.ingestRate, "spooled_readings/s")
+		b.ReportMetric(r.storeRate, "stored_readings/s")
+		b.ReportMetric(r.hwmMB, "peak_RSS_MB")
+	}
+	for _, inflight := range []int{20, 1000} {
+		b.Run(fmt.Sprintf("single/inflight%d", inflight), func(b *testing.B) {
+			for b.Loop() {
+				e := newE2E(b, e2eOpts{maxInflight: inflight})
+				msgs := e2eReadings(n, t0)
+				bare := bareDrain(b, e.mq, "lakes/+/temp", msgs)
+				r := daemonDrain(b, e, msgs, n)
+				b.Logf("max_inflight_messages %d: bare paho subscriber %.0f msgs/s; holomix %s", inflight, bare, r)
+				report(b, r)
+			}
+		})
+	}
+	b.Run("profile24", func(b *testing.B) {
+		for b.Loop() {
+			e := newE2E(b, e2eOpts{maxInflight: 1000, profile: true})
+			msgs := e2eProfiles(2*n/24, t0) // 2n readings
+			bare := bareDrain(b, e.mq, "lakes/+/profile", msgs)
+			r := daemonDrain(b, e, msgs, len(msgs)*24)
+			b.Logf("json-profile, 24 depths: bare paho subscriber %.0f msgs/s (%.0f readings/s); holomix %s", bare, bare*24, r)
+			report(b, r)
 		}
 	})
-	t.Run("profile24", func(t *testing.T) {
-		e := newE2E(t, e2eOpts{maxInflight: 1000, profile: true})
-		msgs := e2eProfiles(2*n/24, t0) // 2n readings
-		bare := bareDrain(t, e.mq, "lakes/+/profile", msgs)
-		r := daemonDrain(t, e, msgs, len(msgs)*24)
-		t.Logf("json-profile, 24 depths: bare paho subscriber %.0f msgs/s (%.0f readings/s); holomix %s", bare, bare*24, r)
-	})
-	t.Run("sites1000x30", func(t *testing.T) {
-		e := newE2E(t, e2eOpts{maxInflight: 1000, profile: true})
-		msgs := e2eManySites(1000, 30, 12, t0)
-		r := daemonDrain(t, e, msgs, len(msgs)*30)
-		t.Logf("1,000 sites × 30 depths, 12 profiles each: holomix %s", r)
+	b.Run("sites1000x30", func(b *testing.B) {
+		for b.Loop() {
+			e := newE2E(b, e2eOpts{maxInflight: 1000, profile: true})
+			msgs := e2eManySites(1000, 30, 12, t0)
+			r := daemonDrain(b, e, msgs, len(msgs)*30)
+			b.Logf("1,000 sites × 30 depths, 12 profiles each: holomix %s", r)
+			report(b, r)
+		}
 	})
 }

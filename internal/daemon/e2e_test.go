@@ -80,7 +80,7 @@ func (l *e2eLog) tail() string {
 
 // e2eEnv is a broker, a database, a storage directory and the daemon.
 type e2eEnv struct {
-	t        *testing.T
+	t        testing.TB
 	bin      string
 	mq       *testenv.Mosquitto
 	in       *testenv.Influx
@@ -103,7 +103,7 @@ type e2eOpts struct {
 	env         []string
 }
 
-func newE2E(t *testing.T, o e2eOpts) *e2eEnv {
+func newE2E(t testing.TB, o e2eOpts) *e2eEnv {
 	t.Helper()
 	e := &e2eEnv{t: t, bin: e2eBuild(t), dir: t.TempDir(), log: &e2eLog{}, env: o.env}
 	inflight := o.maxInflight
