@@ -153,10 +153,7 @@ type QualityControl struct {
 
 	// Change record for WriteStateChunks: the sites whose sensors changed
 	// since the last call, or all of them.
-	dirty     map[string]struct{}
-	allDirty  bool
-	lastDirty string // the site recorded last (consecutive readings share a site)
-	hasDirty  bool
+	changed siteChanges // sites whose saved state is out of date
 }
 
 // qcSite is the lookup cache of one site: its configured depths and its
@@ -214,7 +211,7 @@ func NewQualityControl(c QCConfig) *QualityControl {
 	}
 	c.KnownDepths = known
 	return &QualityControl{c: c, known: known, sensors: make(map[sensorKey]*sensorState), limit: maxSensors,
-		sites: make(map[string]*qcSite), allDirty: true}
+		sites: make(map[string]*qcSite), changed: siteChanges{all: true}}
 }
 
 // site returns the lookup cache entry of a site.
@@ -351,7 +348,7 @@ func (q *QualityControl) Check(r *Reading, recv time.Time) QC {
 		}
 		cs.add(mm, s)
 	}
-	q.touch(r.Site)
+	q.changed.touch(r.Site)
 	f |= s.check(r, &q.c, f|r.QC&Excluding)
 	r.QC |= f
 	return f

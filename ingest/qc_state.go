@@ -119,7 +119,7 @@ func (q *QualityControl) Restore(data []byte) error {
 	}
 	q.sensors = sensors
 	q.resetCache()
-	q.dirty, q.allDirty, q.hasDirty = nil, true, false
+	q.changed.setAll()
 	return nil
 }
 
@@ -130,19 +130,6 @@ type ChunkFunc func(site string, chunk []byte) error
 // qcChunkVersion is the first byte of a per-site quality-control chunk.
 const qcChunkVersion = 2
 
-// touch records that the state of a site's sensors changed since the last
-// WriteStateChunks.
-func (q *QualityControl) touch(site string) {
-	if q.allDirty || (q.hasDirty && site == q.lastDirty) {
-		return
-	}
-	if q.dirty == nil {
-		q.dirty = make(map[string]struct{})
-	}
-	q.dirty[site] = struct{}{}
-	q.lastDirty, q.hasDirty = site, true
-}
-
 // WriteStateChunks encodes the memory of every site whose sensors changed
 // since the previous call (all sites with all set, after New and after
 // Restore or RestoreChunks) and calls put once per site, sites in ascending
@@ -151,41 +138,15 @@ func (q *QualityControl) touch(site string) {
 // failed save the caller must call it again with all set. A site whose
 // chunk was saved before and did not change since has the same state.
 func (q *QualityControl) WriteStateChunks(all bool, put ChunkFunc) error {
-	all = all || q.allDirty
-	dirty := q.dirty
-	q.dirty, q.allDirty, q.hasDirty = nil, false, false
-	type ent struct {
-		mm int64
-		s  *sensorState
-	}
-	bySite := make(map[string][]ent)
+	want := q.changed.take(all)
+	bySite := make(map[string][]chunkEntry[int64, *sensorState])
 	for k, s := range q.sensors {
-		if !all {
-			if _, ok := dirty[k.site]; !ok {
-				continue
-			}
-		}
-		bySite[k.site] = append(bySite[k.site], ent{k.mm, s})
-	}
-	sites := make([]string, 0, len(bySite))
-	for site := range bySite {
-		sites = append(sites, site)
-	}
-	slices.Sort(sites)
-	var buf []byte
-	for _, site := range sites {
-		es := bySite[site]
-		slices.SortFunc(es, func(a, b ent) int { return cmp.Compare(a.mm, b.mm) })
-		buf = append(buf[:0], qcChunkVersion)
-		buf = binary.AppendUvarint(buf, uint64(len(es)))
-		for _, e := range es {
-			buf = e.s.appendState(buf, e.mm)
-		}
-		if err := put(site, buf); err != nil {
-			return fmt.Errorf("qc state: site %q: %w", site, err)
+		if want(k.site) {
+			bySite[k.site] = append(bySite[k.site], chunkEntry[int64, *sensorState]{k.mm, s})
 		}
 	}
-	return nil
+	return writeSiteChunks("qc state", qcChunkVersion, bySite,
+		func(b []byte, mm int64, s *sensorState) []byte { return s.appendState(b, mm) }, put)
 }
 
 // Flags of a sensor in a quality-control chunk.
@@ -292,7 +253,7 @@ func (q *QualityControl) RestoreChunks(chunks iter.Seq2[string, []byte]) error {
 	}
 	q.sensors = sensors
 	q.resetCache()
-	q.dirty, q.allDirty, q.hasDirty = nil, true, false
+	q.changed.setAll()
 	return nil
 }
 

@@ -1,7 +1,6 @@
 package ingest
 
 import (
-	"cmp"
 	"context"
 	"encoding/binary"
 	"errors"
@@ -9,7 +8,6 @@ import (
 	"iter"
 	"log/slog"
 	"math"
-	"slices"
 	"sync"
 	"time"
 )
@@ -372,7 +370,8 @@ func (c *Committer) commitOnce(ctx context.Context) (progressed bool, err error)
 
 	start := time.Now()
 	var last uint64
-	for attempt := 0; ; attempt++ {
+	var retry Retry
+	for {
 		last, err = c.spool.Commit(entries, dead)
 		if err == nil {
 			break
@@ -380,14 +379,12 @@ func (c *Committer) commitOnce(ctx context.Context) (progressed bool, err error)
 		c.mu.Lock()
 		c.commErr = err
 		c.mu.Unlock()
-		if attempt == 0 || attempt%20 == 0 {
-			c.log.Error("spool commit failed; retrying, messages stay unacknowledged", "err", err, "readings", len(entries), "attempt", attempt+1)
+		if retry.LogNow() {
+			c.log.Error("spool commit failed; retrying, messages stay unacknowledged", "err", err, "readings", len(entries), "attempt", retry.Attempt())
 		}
-		select {
-		case <-ctx.Done():
+		if !retry.Wait(ctx) {
 			c.dirty = true
 			return false, fmt.Errorf("spool commit abandoned at shutdown: %w", err)
-		case <-time.After(min(100*time.Millisecond<<min(attempt, 6), 5*time.Second)):
 		}
 	}
 	c.m.CommitDuration.Observe(time.Since(start).Seconds())
@@ -579,10 +576,7 @@ type dupMemory struct {
 	window int
 	series map[dupKey]*dupRing
 	// Change record for writeChunks, as in QualityControl.
-	dirty     map[string]struct{}
-	allDirty  bool
-	lastDirty string
-	hasDirty  bool
+	changed siteChanges // sites whose saved memory is out of date
 }
 
 type dupKey struct {
@@ -601,7 +595,7 @@ const (
 )
 
 func newDupMemory(window int) *dupMemory {
-	return &dupMemory{window: min(window, maxDuplicateWindow), series: make(map[dupKey]*dupRing), allDirty: true}
+	return &dupMemory{window: min(window, maxDuplicateWindow), series: make(map[dupKey]*dupRing), changed: siteChanges{all: true}}
 }
 
 func fingerprint(r *Reading) uint32 {
@@ -650,13 +644,7 @@ func (d *dupMemory) remember(r *Reading) {
 		d.series[k] = s
 	}
 	s.add(fingerprint(r), d.window)
-	if !d.allDirty && !(d.hasDirty && r.Site == d.lastDirty) {
-		if d.dirty == nil {
-			d.dirty = make(map[string]struct{})
-		}
-		d.dirty[r.Site] = struct{}{}
-		d.lastDirty, d.hasDirty = r.Site, true
-	}
+	d.changed.touch(r.Site)
 }
 
 func (s *dupRing) add(fp uint32, window int) {
@@ -737,7 +725,7 @@ func (d *dupMemory) restore(b []byte) error {
 		series[k] = s
 	}
 	d.series = series
-	d.dirty, d.allDirty, d.hasDirty = nil, true, false
+	d.changed.setAll()
 	return nil
 }
 
@@ -750,45 +738,21 @@ const dupChunkVersion = 2
 // fingerprints oldest first (4 bytes each), series in depth-bit order; it
 // calls put once per site, sites in ascending order.
 func (d *dupMemory) writeChunks(all bool, put ChunkFunc) error {
-	all = all || d.allDirty
-	dirty := d.dirty
-	d.dirty, d.allDirty, d.hasDirty = nil, false, false
-	type ent struct {
-		depth uint64
-		r     *dupRing
-	}
-	bySite := make(map[string][]ent)
+	want := d.changed.take(all)
+	bySite := make(map[string][]chunkEntry[uint64, *dupRing])
 	for k, r := range d.series {
-		if !all {
-			if _, ok := dirty[k.site]; !ok {
-				continue
-			}
-		}
-		bySite[k.site] = append(bySite[k.site], ent{k.depth, r})
-	}
-	sites := make([]string, 0, len(bySite))
-	for site := range bySite {
-		sites = append(sites, site)
-	}
-	slices.Sort(sites)
-	var b []byte
-	for _, site := range sites {
-		es := bySite[site]
-		slices.SortFunc(es, func(x, y ent) int { return cmp.Compare(x.depth, y.depth) })
-		b = append(b[:0], dupChunkVersion)
-		b = binary.AppendUvarint(b, uint64(len(es)))
-		for _, e := range es {
-			b = binary.BigEndian.AppendUint64(b, e.depth)
-			b = binary.AppendUvarint(b, uint64(len(e.r.fp)))
-			for i := range e.r.fp {
-				b = binary.BigEndian.AppendUint32(b, e.r.fp[(e.r.head+i)%len(e.r.fp)])
-			}
-		}
-		if err := put(site, b); err != nil {
-			return fmt.Errorf("duplicate memory: site %q: %w", site, err)
+		if want(k.site) {
+			bySite[k.site] = append(bySite[k.site], chunkEntry[uint64, *dupRing]{k.depth, r})
 		}
 	}
-	return nil
+	return writeSiteChunks("duplicate memory", dupChunkVersion, bySite, func(b []byte, depth uint64, r *dupRing) []byte {
+		b = binary.BigEndian.AppendUint64(b, depth)
+		b = binary.AppendUvarint(b, uint64(len(r.fp)))
+		for i := range r.fp {
+			b = binary.BigEndian.AppendUint32(b, r.fp[(r.head+i)%len(r.fp)])
+		}
+		return b
+	}, put)
 }
 
 // restoreChunks replaces the memory with chunks written by writeChunks
@@ -832,7 +796,7 @@ func (d *dupMemory) restoreChunks(chunks iter.Seq2[string, []byte]) error {
 		}
 	}
 	d.series = series
-	d.dirty, d.allDirty, d.hasDirty = nil, true, false
+	d.changed.setAll()
 	return nil
 }
 

@@ -12,7 +12,6 @@ import (
 	"strconv"
 	"strings"
 	"sync"
-	"syscall"
 	"time"
 
 	influxdb2 "github.com/influxdata/influxdb-client-go/v2"
@@ -206,25 +205,22 @@ func (w *Writer) Run(ctx context.Context) error {
 	idle := time.NewTimer(time.Second)
 	defer idle.Stop()
 	lastPing := time.Time{}
-	full := 0
+	var full Retry
 	for {
 		n, err := w.pump(ctx, true)
 		if ctx.Err() != nil {
 			return nil
 		}
-		if err != nil && (errors.Is(err, syscall.ENOSPC) || errors.Is(err, syscall.EDQUOT)) {
-			if full == 0 || full%20 == 0 {
-				w.log.Error("storage disk full: the database writer waits for space", "err", err, "attempt", full+1)
+		if DiskFull(err) {
+			if full.LogNow() {
+				w.log.Error("storage disk full: the database writer waits for space", "err", err, "attempt", full.Attempt())
 			}
-			select {
-			case <-ctx.Done():
+			if !full.Wait(ctx) {
 				return nil
-			case <-time.After(min(100*time.Millisecond<<min(full, 6), 5*time.Second)):
 			}
-			full++
 			continue
 		}
-		full = 0
+		full.Reset()
 		if err != nil {
 			return err
 		}

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"log/slog"
 	"os"
@@ -70,27 +71,32 @@ func (b *bench) cpuProfile(ctx context.Context, w workload, inflight int) error 
 	defer func() { _ = rig.ClearSession(mq.URL, clientID) }()
 
 	var reg *prometheus.Registry
-	runOnce := func(ctx context.Context, ready chan<- struct{}) error {
+	// start runs the daemon in this process until the returned stop is
+	// called; it returns once the daemon is ready (or failed to start).
+	start := func() (stop func() error, err error) {
 		reg = prometheus.NewRegistry()
-		return live.Run(ctx, live.Options{Config: cfg, Logger: logger, Registry: reg, OnReady: func(live.Info) { close(ready) }})
-	}
-	// Create the session.
-	{
 		rctx, cancel := context.WithCancel(ctx)
 		ready := make(chan struct{})
 		done := make(chan error, 1)
-		go func() { done <- runOnce(rctx, ready) }()
+		go func() {
+			done <- live.Run(rctx, live.Options{Config: cfg, Logger: logger, Registry: reg, OnReady: func(live.Info) { close(ready) }})
+		}()
 		select {
 		case <-ready:
+			return func() error { cancel(); return <-done }, nil
 		case err := <-done:
 			cancel()
-			return err
+			return nil, err
 		}
-		time.Sleep(time.Second) // subscribed
-		cancel()
-		if err := <-done; err != nil {
-			return err
-		}
+	}
+	// Create the session.
+	stop, err := start()
+	if err != nil {
+		return err
+	}
+	time.Sleep(time.Second) // subscribed
+	if err := stop(); err != nil {
+		return err
 	}
 	if _, err := prequeue(ctx, mq.URL, "bench-pub", w.msgs); err != nil {
 		return err
@@ -104,29 +110,18 @@ func (b *bench) cpuProfile(ctx context.Context, w workload, inflight int) error 
 	if err := pprof.StartCPUProfile(f); err != nil {
 		return err
 	}
-	start := time.Now()
-	rctx, cancel := context.WithCancel(ctx)
-	ready := make(chan struct{})
-	done := make(chan error, 1)
-	go func() { done <- runOnce(rctx, ready) }()
-	select {
-	case <-ready:
-	case err := <-done:
+	began := time.Now()
+	stop, err = start()
+	if err != nil {
 		pprof.StopCPUProfile()
-		cancel()
 		return err
 	}
 	end, werr := b.waitStored(ctx, db, w.readings, func() float64 { return counter(reg, "holomix_readings_stored_total") })
 	pprof.StopCPUProfile()
-	cancel()
-	rerr := <-done
-	if werr != nil {
-		return werr
+	if err := errors.Join(werr, stop()); err != nil {
+		return err
 	}
-	if rerr != nil {
-		return rerr
-	}
-	secs := end.Sub(start).Seconds()
+	secs := end.Sub(began).Seconds()
 	top, err := exec.Command("go", "tool", "pprof", "-top", "-nodecount=40", profPath).CombinedOutput()
 	if err != nil {
 		return fmt.Errorf("go tool pprof: %w\n%s", err, top)

@@ -36,7 +36,6 @@ import (
 	"strconv"
 	"strings"
 	"sync"
-	"syscall"
 	"time"
 
 	"github.com/influxdata/influxdb-client-go/v2/api/write"
@@ -952,23 +951,22 @@ func (d *daemon) feedAll(ctx context.Context) error {
 // since no checkpoint passes these readings until their points are spooled,
 // a restart derives the points again. Other errors stop the daemon.
 func (d *daemon) spoolDerived(ctx context.Context) error {
-	for attempt := 0; ; attempt++ {
+	var retry ingest.Retry
+	for {
 		err := d.spool.AppendLinesAfter(d.fed, d.sink.lines)
 		if err == nil {
 			clear(d.sink.lines)
 			d.sink.lines = d.sink.lines[:0]
 			return nil
 		}
-		if !errors.Is(err, syscall.ENOSPC) && !errors.Is(err, syscall.EDQUOT) {
+		if !ingest.DiskFull(err) {
 			return fmt.Errorf("daemon: spool derived points: %w", err)
 		}
-		if attempt == 0 || attempt%20 == 0 {
-			d.log.Error("storage disk full: detection waits until its derived points can be spooled", "err", err, "points", len(d.sink.lines), "attempt", attempt+1)
+		if retry.LogNow() {
+			d.log.Error("storage disk full: detection waits until its derived points can be spooled", "err", err, "points", len(d.sink.lines), "attempt", retry.Attempt())
 		}
-		select {
-		case <-ctx.Done():
+		if !retry.Wait(ctx) {
 			return fmt.Errorf("daemon: spool derived points: %w", err)
-		case <-time.After(min(100*time.Millisecond<<min(attempt, 6), 5*time.Second)):
 		}
 	}
 }
@@ -1262,24 +1260,23 @@ func (s *engineSink) Event(e detect.Event) {
 // alert for good, since detection has moved past it. If the feed stops
 // meanwhile, s.err keeps the failure (see engineSink.ctx).
 func (s *engineSink) submit(e detect.Event) error {
-	for attempt := 0; ; attempt++ {
+	ctx := s.ctx
+	if ctx == nil {
+		ctx = context.Background()
+	}
+	var retry ingest.Retry
+	for {
 		err := s.d.dispatcher().Submit(e)
-		if err == nil || (!errors.Is(err, syscall.ENOSPC) && !errors.Is(err, syscall.EDQUOT)) {
+		if err == nil || !ingest.DiskFull(err) {
 			return err
 		}
-		if attempt == 0 || attempt%20 == 0 {
+		if retry.LogNow() {
 			s.d.log.Error("storage disk full: detection waits until the alert outbox can store the event",
-				"site", e.Site, "kind", string(e.Kind), "err", err, "attempt", attempt+1)
+				"site", e.Site, "kind", string(e.Kind), "err", err, "attempt", retry.Attempt())
 		}
-		done := make(<-chan struct{})
-		if s.ctx != nil {
-			done = s.ctx.Done()
-		}
-		select {
-		case <-done:
+		if !retry.Wait(ctx) {
 			s.err = err
 			return nil
-		case <-time.After(min(100*time.Millisecond<<min(attempt, 6), 5*time.Second)):
 		}
 	}
 }
