@@ -153,7 +153,7 @@ type QualityControl struct {
 
 	// Change record for WriteStateChunks: the sites whose sensors changed
 	// since the last call, or all of them.
-	changed siteChanges // sites whose saved state is out of date
+	changed SiteChanges // sites whose saved state is out of date
 }
 
 // qcSite is the lookup cache of one site: its configured depths and its
@@ -211,7 +211,7 @@ func NewQualityControl(c QCConfig) *QualityControl {
 	}
 	c.KnownDepths = known
 	return &QualityControl{c: c, known: known, sensors: make(map[sensorKey]*sensorState), limit: maxSensors,
-		sites: make(map[string]*qcSite), changed: siteChanges{all: true}}
+		sites: make(map[string]*qcSite), changed: SiteChanges{all: true}}
 }
 
 // site returns the lookup cache entry of a site.
@@ -348,7 +348,7 @@ func (q *QualityControl) Check(r *Reading, recv time.Time) QC {
 		}
 		cs.add(mm, s)
 	}
-	q.changed.touch(r.Site)
+	q.changed.Touch(r.Site)
 	f |= s.check(r, &q.c, f|r.QC&Excluding)
 	r.QC |= f
 	return f

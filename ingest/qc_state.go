@@ -119,7 +119,7 @@ func (q *QualityControl) Restore(data []byte) error {
 	}
 	q.sensors = sensors
 	q.resetCache()
-	q.changed.setAll()
+	q.changed.SetAll()
 	return nil
 }
 
@@ -138,10 +138,10 @@ const qcChunkVersion = 2
 // failed save the caller must call it again with all set. A site whose
 // chunk was saved before and did not change since has the same state.
 func (q *QualityControl) WriteStateChunks(all bool, put ChunkFunc) error {
-	want := q.changed.take(all)
+	changed := q.changed.Take(all)
 	bySite := make(map[string][]chunkEntry[int64, *sensorState])
 	for k, s := range q.sensors {
-		if want(k.site) {
+		if changed.Has(k.site) {
 			bySite[k.site] = append(bySite[k.site], chunkEntry[int64, *sensorState]{k.mm, s})
 		}
 	}
@@ -253,7 +253,7 @@ func (q *QualityControl) RestoreChunks(chunks iter.Seq2[string, []byte]) error {
 	}
 	q.sensors = sensors
 	q.resetCache()
-	q.changed.setAll()
+	q.changed.SetAll()
 	return nil
 }
 

@@ -7,19 +7,19 @@ import (
 	"slices"
 )
 
-// siteChanges records the sites whose saved state is out of date: the
-// change record behind WriteStateChunks of quality control and of the
-// duplicate memory. The zero value has nothing recorded; after a start or a
-// restore everything is out of date (setAll).
-type siteChanges struct {
+// SiteChanges records the sites whose saved state is out of date: the
+// change record behind the per-site checkpoint chunks of quality control,
+// the duplicate memory and the detection engine. The zero value has nothing
+// recorded; after a start or a restore everything is out of date (SetAll).
+type SiteChanges struct {
 	sites   map[string]struct{}
 	all     bool
 	last    string // the site recorded last (consecutive readings share a site)
 	hasLast bool
 }
 
-// touch records that site's state changed.
-func (c *siteChanges) touch(site string) {
+// Touch records that site's state changed.
+func (c *SiteChanges) Touch(site string) {
 	if c.all || (c.hasLast && site == c.last) {
 		return
 	}
@@ -30,22 +30,31 @@ func (c *siteChanges) touch(site string) {
 	c.last, c.hasLast = site, true
 }
 
-// setAll marks every site out of date.
-func (c *siteChanges) setAll() { *c = siteChanges{all: true} }
+// SetAll marks every site out of date.
+func (c *SiteChanges) SetAll() { *c = SiteChanges{all: true} }
 
-// take resets the record and returns whether a site was out of date (every
-// site when all is set or everything was).
-func (c *siteChanges) take(all bool) func(site string) bool {
-	all = all || c.all
-	sites := c.sites
-	*c = siteChanges{}
-	return func(site string) bool {
-		if all {
-			return true
-		}
-		_, ok := sites[site]
-		return ok
+// Take resets the record and returns what it held (every site when all is
+// set).
+func (c *SiteChanges) Take(all bool) ChangedSites {
+	ch := ChangedSites{All: all || c.all, Sites: c.sites}
+	*c = SiteChanges{}
+	return ch
+}
+
+// ChangedSites is what SiteChanges.Take returns: every site (All) or the
+// sites in Sites.
+type ChangedSites struct {
+	All   bool
+	Sites map[string]struct{}
+}
+
+// Has reports whether site's state is out of date.
+func (c ChangedSites) Has(site string) bool {
+	if c.All {
+		return true
 	}
+	_, ok := c.Sites[site]
+	return ok
 }
 
 // chunkEntry is one item of a site's chunk: its sort key and its value.

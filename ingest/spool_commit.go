@@ -576,7 +576,7 @@ type dupMemory struct {
 	window int
 	series map[dupKey]*dupRing
 	// Change record for writeChunks, as in QualityControl.
-	changed siteChanges // sites whose saved memory is out of date
+	changed SiteChanges // sites whose saved memory is out of date
 }
 
 type dupKey struct {
@@ -595,7 +595,7 @@ const (
 )
 
 func newDupMemory(window int) *dupMemory {
-	return &dupMemory{window: min(window, maxDuplicateWindow), series: make(map[dupKey]*dupRing), changed: siteChanges{all: true}}
+	return &dupMemory{window: min(window, maxDuplicateWindow), series: make(map[dupKey]*dupRing), changed: SiteChanges{all: true}}
 }
 
 func fingerprint(r *Reading) uint32 {
@@ -644,7 +644,7 @@ func (d *dupMemory) remember(r *Reading) {
 		d.series[k] = s
 	}
 	s.add(fingerprint(r), d.window)
-	d.changed.touch(r.Site)
+	d.changed.Touch(r.Site)
 }
 
 func (s *dupRing) add(fp uint32, window int) {
@@ -725,7 +725,7 @@ func (d *dupMemory) restore(b []byte) error {
 		series[k] = s
 	}
 	d.series = series
-	d.changed.setAll()
+	d.changed.SetAll()
 	return nil
 }
 
@@ -738,10 +738,10 @@ const dupChunkVersion = 2
 // fingerprints oldest first (4 bytes each), series in depth-bit order; it
 // calls put once per site, sites in ascending order.
 func (d *dupMemory) writeChunks(all bool, put ChunkFunc) error {
-	want := d.changed.take(all)
+	changed := d.changed.Take(all)
 	bySite := make(map[string][]chunkEntry[uint64, *dupRing])
 	for k, r := range d.series {
-		if want(k.site) {
+		if changed.Has(k.site) {
 			bySite[k.site] = append(bySite[k.site], chunkEntry[uint64, *dupRing]{k.depth, r})
 		}
 	}
@@ -796,7 +796,7 @@ func (d *dupMemory) restoreChunks(chunks iter.Seq2[string, []byte]) error {
 		}
 	}
 	d.series = series
-	d.changed.setAll()
+	d.changed.SetAll()
 	return nil
 }
 

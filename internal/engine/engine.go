@@ -61,10 +61,7 @@ type Engine struct {
 
 	// Change record for WriteStateChunks: the sites whose detector or
 	// assembly state changed since the last call, or all of them.
-	dirty     map[string]struct{}
-	allDirty  bool
-	lastDirty string // the site recorded last (consecutive readings share a site)
-	hasDirty  bool
+	changed ingest.SiteChanges // sites whose saved state is out of date
 }
 
 // site is one site's detector.
@@ -92,8 +89,8 @@ func New(cfg *config.Config, sink Sink) (*Engine, error) {
 		names:    make(map[string]string, 2*len(cfg.Sites)),
 		resolved: make(map[string]string),
 		sites:    make(map[string]*site),
-		allDirty: true,
 	}
+	e.changed.SetAll() // nothing saved yet
 	expected := make(map[string][]float64, len(cfg.Sites))
 	for _, s := range cfg.Sites {
 		if _, dup := e.conf[s.ID]; dup {
@@ -167,7 +164,7 @@ func (e *Engine) Add(r ingest.Reading) (late bool) {
 		return false
 	}
 	r.Site = e.Resolve(r.Site)
-	e.touch(r.Site)
+	e.changed.Touch(r.Site)
 	late = e.asm.Add(r, e.emitFn)
 	if late {
 		e.stats.Late++
@@ -191,13 +188,13 @@ func (e *Engine) AddAir(siteName string, t time.Time, c float64) {
 		e.sites[id] = s
 	}
 	e.stats.Air++
-	e.touch(id)
+	e.changed.Touch(id)
 	s.det.ObserveAir(t.UTC(), c)
 }
 
 // Flush emits and detects every open profile, as at the end of the input.
 func (e *Engine) Flush() {
-	e.allDirty = true
+	e.changed.SetAll()
 	e.asm.Flush(e.emitFn)
 }
 
@@ -208,14 +205,14 @@ func (e *Engine) Stats() Stats { return e.stats }
 // made through it are not tracked site by site: the next WriteStateChunks
 // saves every site.
 func (e *Engine) Assembler() *ingest.Assembler {
-	e.allDirty = true
+	e.changed.SetAll()
 	return e.asm
 }
 
 // profile detects one assembled profile.
 func (e *Engine) profile(p detect.Profile) {
 	s := e.siteFor(p)
-	e.touch(p.Site)
+	e.changed.Touch(p.Site)
 	e.stats.Profiles++
 	col, evs := s.det.Process(p)
 	e.sink.Column(col, p)
@@ -407,7 +404,7 @@ func (e *Engine) Restore(b []byte) error {
 	}
 	e.sites = sites
 	e.stats = sn.Stats
-	e.dirty, e.allDirty, e.hasDirty = nil, true, false
+	e.changed.SetAll()
 	return nil
 }
 
@@ -419,18 +416,6 @@ func (e *Engine) ConfiguredSites() []string {
 	}
 	slices.Sort(ids)
 	return ids
-}
-
-// touch records that a site's detector or assembly state changed.
-func (e *Engine) touch(id string) {
-	if e.allDirty || (e.hasDirty && id == e.lastDirty) {
-		return
-	}
-	if e.dirty == nil {
-		e.dirty = make(map[string]struct{})
-	}
-	e.dirty[id] = struct{}{}
-	e.lastDirty, e.hasDirty = id, true
 }
 
 // chunkHead is the JSON form of the head that WriteStateChunks returns.
@@ -463,11 +448,9 @@ const (
 // a failed save call it again with all set. Only one site's encoded state is
 // held at a time (chunk is reused between calls).
 func (e *Engine) WriteStateChunks(all bool, put ingest.ChunkFunc) (head []byte, err error) {
-	all = all || e.allDirty
-	dirty := e.dirty
-	e.dirty, e.allDirty, e.hasDirty = nil, false, false
+	changed := e.changed.Take(all)
 	var ids []string
-	if all {
+	if changed.All {
 		seen := make(map[string]struct{}, len(e.sites))
 		for id := range e.sites {
 			seen[id] = struct{}{}
@@ -479,7 +462,7 @@ func (e *Engine) WriteStateChunks(all bool, put ingest.ChunkFunc) (head []byte, 
 			ids = append(ids, id)
 		}
 	} else {
-		for id := range dirty {
+		for id := range changed.Sites {
 			ids = append(ids, id)
 		}
 	}
@@ -575,6 +558,6 @@ func (e *Engine) RestoreChunks(head []byte, chunks iter.Seq2[string, []byte]) er
 	}
 	e.sites = sites
 	e.stats = h.Stats
-	e.dirty, e.allDirty, e.hasDirty = nil, true, false
+	e.changed.SetAll()
 	return nil
 }
