@@ -161,19 +161,14 @@ func findBinary(name, envVar string, candidates []string, install string) (strin
 	return "", fmt.Errorf("%s not found (set %s or install it: %s)", name, envVar, install)
 }
 
-func waitTCP(addr string, d time.Duration) error {
-	deadline := time.Now().Add(d)
-	for {
-		c, err := net.DialTimeout("tcp", addr, 200*time.Millisecond)
-		if err == nil {
-			c.Close()
-			return nil
-		}
-		if time.Now().After(deadline) {
-			return fmt.Errorf("%s not accepting connections after %s: %w", addr, d, err)
-		}
-		time.Sleep(25 * time.Millisecond)
+// dials reports whether addr accepts a TCP connection now.
+func dials(addr string) bool {
+	c, err := net.DialTimeout("tcp", addr, 200*time.Millisecond)
+	if err != nil {
+		return false
 	}
+	c.Close()
+	return true
 }
 
 // MosquittoOptions tune the broker a test starts.
@@ -234,6 +229,19 @@ func newMosquitto(dir string, o MosquittoOptions) (*Mosquitto, error) {
 	if err != nil {
 		return nil, err
 	}
+	for attempt := 1; ; attempt++ {
+		m, err := tryMosquitto(bin, dir, o)
+		if err == nil || !errors.Is(err, errPortTaken) || attempt == portAttempts {
+			return m, err
+		}
+	}
+}
+
+// portAttempts bounds how often a server is started on fresh ports after
+// another process took the one picked for it.
+const portAttempts = 5
+
+func tryMosquitto(bin, dir string, o MosquittoOptions) (*Mosquitto, error) {
 	port, err := freePort()
 	if err != nil {
 		return nil, err
@@ -279,6 +287,7 @@ func newMosquitto(dir string, o MosquittoOptions) (*Mosquitto, error) {
 	}
 	m.p = &process{name: "mosquitto", bin: bin, args: []string{"-c", cfgPath}, log: filepath.Join(dir, "mosquitto.log")}
 	if err := m.Restart(); err != nil {
+		m.Stop()
 		return nil, err
 	}
 	return m, nil
@@ -298,8 +307,13 @@ func (m *Mosquitto) Restart() error {
 	if err := m.p.start(); err != nil {
 		return err
 	}
-	if err := waitTCP(fmt.Sprintf("127.0.0.1:%d", m.Port), 15*time.Second); err != nil {
-		return fmt.Errorf("mosquitto: %w\n%s", err, m.p.tail())
+	ports := []int{m.Port}
+	if m.TLSPort != 0 {
+		ports = append(ports, m.TLSPort)
+	}
+	accepts := func() bool { return dials(fmt.Sprintf("127.0.0.1:%d", m.Port)) }
+	if err := m.p.waitOwnListeners(ports, accepts, 15*time.Second); err != nil {
+		return fmt.Errorf("mosquitto: %w", err)
 	}
 	return nil
 }
@@ -333,6 +347,7 @@ type Influx struct {
 	Bucket   string // Database + "/autogen", the v2 bucket name
 	Token    string // "user:password", or ":" without authentication
 	Dir      string
+	rpcPort  int // backup/restore listener, bound too
 	p        *process
 	opts     InfluxOptions
 }
@@ -393,20 +408,8 @@ func newInflux(dir string, o InfluxOptions) (*Influx, error) {
 	if o.Database == "" {
 		o.Database = "lake"
 	}
-	port, err := freePort()
-	if err != nil {
-		return nil, err
-	}
-	in := &Influx{Port: port, Dir: dir, Database: o.Database, Bucket: o.Database + "/autogen", Token: ":", opts: o}
-	in.URL = fmt.Sprintf("http://127.0.0.1:%d", in.Port)
-	if o.Auth {
-		in.Token = o.Username + ":" + o.Password
-	}
-	rpc, err := freePort()
-	if err != nil {
-		return nil, err
-	}
-	conf := fmt.Sprintf(`reporting-disabled = true
+	return startInflux(bin, dir, o, func(dir string, httpPort, rpcPort int) (string, error) {
+		return fmt.Sprintf(`reporting-disabled = true
 bind-address = "127.0.0.1:%d"
 [meta]
   dir = "%s/meta"
@@ -426,14 +429,75 @@ bind-address = "127.0.0.1:%d"
   max-body-size = 0
 [logging]
   level = "warn"
-`, rpc, dir, dir, dir, in.Port, o.Auth)
+`, rpcPort, dir, dir, dir, httpPort, o.Auth), nil
+	}, true)
+}
+
+// InfluxConfig writes an influxd configuration for the data directory and
+// the two loopback ports given (HTTP; backup/restore RPC).
+type InfluxConfig func(dir string, httpPort, rpcPort int) (string, error)
+
+// StartInfluxConfig starts influxd with a configuration of the caller's and
+// does nothing else (no user, no database): for tests of a shipped
+// configuration file. It returns once the server itself answers /ping.
+func StartInfluxConfig(t testing.TB, mk InfluxConfig) *Influx {
+	t.Helper()
+	bin, err := influxdPath()
+	if err != nil {
+		t.Fatalf("testenv: %v", err)
+	}
+	in, err := startInflux(bin, t.TempDir(), InfluxOptions{}, mk, false)
+	if in != nil {
+		t.Cleanup(in.Stop)
+	}
+	if err != nil {
+		t.Fatalf("testenv: %v", err)
+	}
+	return in
+}
+
+// startInflux starts influxd on fresh ports, again on other ones when
+// another process took them first; with setup it creates the admin user
+// (o.Auth) and the database.
+func startInflux(bin, dir string, o InfluxOptions, mk InfluxConfig, setup bool) (*Influx, error) {
+	for attempt := 1; ; attempt++ {
+		in, err := tryInflux(bin, dir, o, mk, setup)
+		if err == nil || !errors.Is(err, errPortTaken) || attempt == portAttempts {
+			return in, err
+		}
+	}
+}
+
+func tryInflux(bin, dir string, o InfluxOptions, mk InfluxConfig, setup bool) (*Influx, error) {
+	port, err := freePort()
+	if err != nil {
+		return nil, err
+	}
+	in := &Influx{Port: port, Dir: dir, Database: o.Database, Bucket: o.Database + "/autogen", Token: ":", opts: o}
+	in.URL = fmt.Sprintf("http://127.0.0.1:%d", in.Port)
+	if o.Auth {
+		in.Token = o.Username + ":" + o.Password
+	}
+	for in.rpcPort == 0 || in.rpcPort == in.Port {
+		if in.rpcPort, err = freePort(); err != nil {
+			return nil, err
+		}
+	}
+	conf, err := mk(dir, in.Port, in.rpcPort)
+	if err != nil {
+		return nil, err
+	}
 	cfgPath := filepath.Join(dir, "influxdb.conf")
 	if err := os.WriteFile(cfgPath, []byte(conf), 0o644); err != nil {
 		return nil, fmt.Errorf("write influxdb.conf: %w", err)
 	}
 	in.p = &process{name: "influxd", bin: bin, args: []string{"run", "-config", cfgPath}, log: filepath.Join(dir, "influxd.log")}
 	if err := in.Restart(); err != nil {
-		return in, err
+		in.Stop()
+		return nil, err
+	}
+	if !setup {
+		return in, nil
 	}
 	if o.Auth {
 		// The first user may be created without credentials while none exists.
@@ -469,20 +533,17 @@ func (in *Influx) Restart() error {
 	if err := in.p.start(); err != nil {
 		return err
 	}
-	deadline := time.Now().Add(60 * time.Second)
-	for {
-		resp, err := http.Get(in.URL + "/ping")
-		if err == nil {
-			resp.Body.Close()
-			if resp.StatusCode == http.StatusNoContent {
-				return nil
-			}
-		}
-		if time.Now().After(deadline) {
-			return fmt.Errorf("influxd /ping not ready after 60 s: %v\n%s", err, in.p.tail())
-		}
-		time.Sleep(50 * time.Millisecond)
+	return in.p.waitOwnListeners([]int{in.Port, in.rpcPort}, func() bool { return Pings(in.URL) }, 60*time.Second)
+}
+
+// Pings reports whether an InfluxDB answers GET /ping with 204 at base.
+func Pings(base string) bool {
+	resp, err := http.Get(base + "/ping")
+	if err != nil {
+		return false
 	}
+	resp.Body.Close()
+	return resp.StatusCode == http.StatusNoContent
 }
 
 // PID returns the server's process id (0 when it is not running).

@@ -3,13 +3,12 @@ package tlstest
 import (
 	"context"
 	"fmt"
+	"io"
 	"net/http"
 	"net/url"
 	"os"
-	"os/exec"
 	"path/filepath"
 	"strings"
-	"syscall"
 	"testing"
 	"time"
 
@@ -33,65 +32,31 @@ func TestExampleInfluxConfig(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	dir := t.TempDir()
-	httpPort, rpcPort := testenv.FreePort(t), testenv.FreePort(t)
 	conf := string(b)
 	for _, promise := range []string{"auth-enabled = true", "flux-enabled = true", "reporting-disabled = true"} {
 		if !strings.Contains(conf, promise) {
 			t.Fatalf("deploy/influxdb.conf no longer says %q", promise)
 		}
 	}
-	for from, to := range map[string]string{
-		"/var/lib/influxdb": dir,
-		`"127.0.0.1:8086"`:  fmt.Sprintf(`"127.0.0.1:%d"`, httpPort),
-		`"127.0.0.1:8088"`:  fmt.Sprintf(`"127.0.0.1:%d"`, rpcPort),
-	} {
-		if !strings.Contains(conf, from) {
-			t.Fatalf("deploy/influxdb.conf no longer contains %q", from)
-		}
-		conf = strings.ReplaceAll(conf, from, to)
-	}
-	path := filepath.Join(dir, "influxdb.conf")
-	if err := os.WriteFile(path, []byte(conf), 0o644); err != nil {
-		t.Fatal(err)
-	}
-	cmd := exec.Command(testenv.InfluxdPath(t), "run", "-config", path)
-	logf, err := os.Create(filepath.Join(dir, "influxd.log"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	cmd.Stdout, cmd.Stderr = logf, logf
-	cmd.SysProcAttr = &syscall.SysProcAttr{Setpgid: true}
-	if err := cmd.Start(); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() {
-		_ = cmd.Process.Signal(syscall.SIGTERM)
-		done := make(chan struct{})
-		go func() { _ = cmd.Wait(); close(done) }()
-		select {
-		case <-done:
-		case <-time.After(10 * time.Second):
-			_ = cmd.Process.Kill()
-			<-done
-		}
-		logf.Close()
-	})
-	base := fmt.Sprintf("http://127.0.0.1:%d", httpPort)
-	logTail := func() string { b, _ := os.ReadFile(logf.Name()); return string(b) }
-	for deadline := time.Now().Add(60 * time.Second); ; time.Sleep(100 * time.Millisecond) {
-		resp, err := http.Get(base + "/ping")
-		if err == nil {
-			resp.Body.Close()
-			if resp.StatusCode == http.StatusNoContent {
-				break
+	in := testenv.StartInfluxConfig(t, func(dir string, httpPort, rpcPort int) (string, error) {
+		c := conf
+		for from, to := range map[string]string{
+			"/var/lib/influxdb": dir,
+			`"127.0.0.1:8086"`:  fmt.Sprintf(`"127.0.0.1:%d"`, httpPort),
+			`"127.0.0.1:8088"`:  fmt.Sprintf(`"127.0.0.1:%d"`, rpcPort),
+		} {
+			if !strings.Contains(c, from) {
+				return "", fmt.Errorf("deploy/influxdb.conf no longer contains %q", from)
 			}
+			c = strings.ReplaceAll(c, from, to)
 		}
-		if time.Now().After(deadline) {
-			t.Fatalf("influxd with deploy/influxdb.conf not ready: %v\n%s", err, logTail())
-		}
-	}
+		return c, nil
+	})
+	base := in.URL
+	// q runs one statement and returns the HTTP status; a 200 whose body
+	// carries an InfluxQL error fails the test with that error.
 	q := func(user, pass, stmt string) int {
+		t.Helper()
 		req, _ := http.NewRequest(http.MethodPost, base+"/query", strings.NewReader(url.Values{"q": {stmt}}.Encode()))
 		req.Header.Set("Content-Type", "application/x-www-form-urlencoded")
 		if user != "" {
@@ -101,15 +66,19 @@ func TestExampleInfluxConfig(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		resp.Body.Close()
+		defer resp.Body.Close()
+		body, _ := io.ReadAll(resp.Body)
+		if resp.StatusCode == http.StatusOK && strings.Contains(string(body), `"error"`) {
+			t.Fatalf("%s: HTTP 200 with an error: %s\n%s", stmt, body, in.Log())
+		}
 		return resp.StatusCode
 	}
 	// The first admin may be created anonymously, as the file's comment says.
 	if code := q("", "", `CREATE USER admin WITH PASSWORD 'adm-pw-6620' WITH ALL PRIVILEGES`); code != http.StatusOK {
-		t.Fatalf("create admin: HTTP %d\n%s", code, logTail())
+		t.Fatalf("create admin: HTTP %d\n%s", code, in.Log())
 	}
 	if code := q("", "", "SHOW DATABASES"); code != http.StatusUnauthorized {
-		t.Fatalf("anonymous query: HTTP %d, want 401 (auth-enabled)", code)
+		t.Fatalf("anonymous query: HTTP %d, want 401 (auth-enabled)\n%s", code, in.Log())
 	}
 	if code := q("admin", "adm-pw-6620", "CREATE DATABASE lake"); code != http.StatusOK {
 		t.Fatalf("create database: HTTP %d", code)
