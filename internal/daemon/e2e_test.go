@@ -367,7 +367,7 @@ type e2ePublisher struct {
 
 func newE2EPublisher(t testing.TB, broker, id string) *e2ePublisher {
 	t.Helper()
-	c := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(broker).SetClientID(id).SetCleanSession(true).
+	c := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(broker).SetClientID(id).SetCleanSession(true).SetStore(testenv.PublisherStore()).
 		SetAutoReconnect(true).SetConnectRetry(true).SetConnectRetryInterval(100 * time.Millisecond).
 		SetMaxReconnectInterval(500 * time.Millisecond).SetWriteTimeout(5 * time.Second))
 	tok := c.Connect()

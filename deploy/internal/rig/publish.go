@@ -7,6 +7,8 @@ import (
 	"time"
 
 	mqtt "github.com/eclipse/paho.mqtt.golang"
+
+	"holomix/internal/testenv"
 )
 
 // Publisher publishes at QoS 1 with a window of outstanding messages and
@@ -23,7 +25,7 @@ type Publisher struct {
 
 // NewPublisher connects a publisher (clean session, automatic reconnection).
 func NewPublisher(broker, clientID string) (*Publisher, error) {
-	c := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(broker).SetClientID(clientID).SetCleanSession(true).
+	c := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(broker).SetClientID(clientID).SetCleanSession(true).SetStore(testenv.PublisherStore()).
 		SetAutoReconnect(true).SetConnectRetry(true).SetConnectRetryInterval(100 * time.Millisecond).
 		SetMaxReconnectInterval(500 * time.Millisecond).SetWriteTimeout(5 * time.Second))
 	tok := c.Connect()
