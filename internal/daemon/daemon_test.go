@@ -303,3 +303,27 @@ func TestRunFeedsDetection(t *testing.T) {
 		t.Fatalf("status API: %d %.200s", code, body)
 	}
 }
+
+// TestRunAirTopic: a site's air_topic subscription takes a bare number and a
+// JSON object, acknowledges both (the publisher's QoS 1 publish completes),
+// counts them as used by detection, and refuses a non-number with a reason.
+func TestRunAirTopic(t *testing.T) {
+	mq := testenv.StartMosquitto(t, testenv.MosquittoOptions{Extra: testenv.MosquittoUserLine()})
+	cfg := dtConfig(t, mq.URL)
+	cfg.Sites[0].AirTopic = "weather/fen-water/air"
+	base, _ := dtRun(t, Options{Config: cfg})
+	dtWait(t, "subscribed (ready)", func() bool { code, _ := dtGet(t, base+"/readyz", ""); return code == 200 })
+	pub := newE2EPublisher(t, mq.URL, "dt-air-pub")
+	now := time.Now().UTC().Format(time.RFC3339)
+	pub.publish(t, []e2eMsg{
+		{topic: "weather/fen-water/air", payload: []byte("-7.5")},
+		{topic: "weather/fen-water/air", payload: fmt.Appendf(nil, `{"time":"%s","temp_c":-8.25}`, now)},
+		{topic: "weather/fen-water/air", payload: []byte(`"cold"`)},
+	}, 3, 20*time.Second)
+	dtWait(t, "two air temperatures used, one rejected", func() bool {
+		_, body := dtGet(t, base+"/metrics", "")
+		return strings.Contains(body, `holomix_air_temperatures_total{outcome="used"} 2`) &&
+			strings.Contains(body, `holomix_air_temperatures_total{outcome="dropped"} 0`) &&
+			strings.Contains(body, `holomix_messages_rejected_total{reason="bad_number"} 1`)
+	})
+}
