@@ -52,28 +52,30 @@ log "systemd unit"
 ./deploy/verify-unit.sh
 
 # --- fuzzing (brief; deploy/faults.sh runs each target longer) ------------------
+# Logs of this run in a directory of its own (two checkouts may test at once).
+logs=$(mktemp -d -t holomix-test.XXXXXX)
 log "fuzzing payload decoders, $FUZZTIME each"
 for target in $(go test -list '^Fuzz' ./ingest/ | grep '^Fuzz' || true); do
-  ./deploy/fuzz-one.sh "$target" "$FUZZTIME" /tmp/holomix-fuzz.log || { cat /tmp/holomix-fuzz.log; exit 1; }
+  ./deploy/fuzz-one.sh "$target" "$FUZZTIME" "$logs/fuzz.log" || { cat "$logs/fuzz.log"; exit 1; }
   echo "  $target ok"
 done
 
 # --- all tests --------------------------------------------------------------------
 log "go test -race ./..."
 set +e
-go test -race -count=1 -timeout 45m ./... 2>&1 | tee /tmp/holomix-test.log
+go test -race -count=1 -timeout 45m ./... 2>&1 | tee "$logs/test.log"
 status=${PIPESTATUS[0]}
 set -e
 # Detector scoring against 20 simulated seasons: pure computation, too slow under
 # the race detector (the detect and engine packages are raced above), so it runs here.
 log "detectors against simulator truth (20 seasons, no race detector)"
 set +e
-go test -count=1 -timeout 20m -run 'TestDetectorsAgainstSimulatorTruth' -v ./internal/demo/ 2>&1 | tee -a /tmp/holomix-test.log
+go test -count=1 -timeout 20m -run 'TestDetectorsAgainstSimulatorTruth' -v ./internal/demo/ 2>&1 | tee -a "$logs/test.log"
 truth=${PIPESTATUS[0]}
 set -e
 [ "$truth" -eq 0 ] || status=1
-passed=$(grep -c '^ok ' /tmp/holomix-test.log || true)
-failed=$(grep -c '^FAIL\s' /tmp/holomix-test.log || true)
+passed=$(grep -c '^ok ' "$logs/test.log" || true)
+failed=$(grep -c '^FAIL\s' "$logs/test.log" || true)
 echo
-echo "packages: $passed passed, $failed failed"
+echo "packages: $passed passed, $failed failed (log: $logs/test.log)"
 exit "$status"
