@@ -9,6 +9,7 @@ import (
 
 	bolt "go.etcd.io/bbolt"
 
+	"holomix/config"
 	"holomix/detect"
 	"holomix/ingest"
 	"holomix/internal/engine"
@@ -125,17 +126,7 @@ func TestCheckpointMigratesSingleDocument(t *testing.T) {
 	d.closeAll()
 
 	// Restart: the per-site form restores the same state.
-	d2, err := open(Options{Config: cfg})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer d2.closeAll()
-	if got, _ := d2.eng.Snapshot(); !bytes.Equal(got, engDoc) {
-		t.Fatal("detection state differs after the per-site round trip")
-	}
-	if got, _, _, _ := d2.com.Snapshot(); !bytes.Equal(got, wantQC) {
-		t.Fatal("quality-control memory differs after the per-site round trip")
-	}
+	d2 := reopenSame(t, cfg, engDoc, wantQC, "after the per-site round trip")
 	if d2.saved.eng != 0 || d2.saved.qc != 1 {
 		t.Fatalf("sequences %d/%d, want 0/1", d2.saved.eng, d2.saved.qc)
 	}
@@ -172,17 +163,7 @@ func TestCheckpointMigratesSingleDocument(t *testing.T) {
 		t.Fatal(err)
 	}
 	d2.closeAll()
-	d3, err := open(Options{Config: cfg})
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer d3.closeAll()
-	if got, _ := d3.eng.Snapshot(); !bytes.Equal(got, engDoc) {
-		t.Fatal("detection state differs after reading the uncompressed per-site format")
-	}
-	if got, _, _, _ := d3.com.Snapshot(); !bytes.Equal(got, wantQC) {
-		t.Fatal("quality-control memory differs after reading the uncompressed per-site format")
-	}
+	d3 := reopenSame(t, cfg, engDoc, wantQC, "after reading the uncompressed per-site format")
 	d3.fed++ // something to save
 	if took := d3.checkpoint(); took == 0 {
 		t.Fatal("no checkpoint written after the format-2 start")
@@ -193,6 +174,25 @@ func TestCheckpointMigratesSingleDocument(t *testing.T) {
 		}
 		return nil
 	})
+}
+
+// reopenSame opens the daemon's storage again and fails unless detection
+// state and quality-control memory are the ones given; the daemon is closed
+// on cleanup.
+func reopenSame(t *testing.T, cfg *config.Config, engDoc, wantQC []byte, when string) *daemon {
+	t.Helper()
+	d, err := open(Options{Config: cfg})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(d.closeAll)
+	if got, _ := d.eng.Snapshot(); !bytes.Equal(got, engDoc) {
+		t.Fatal("detection state differs " + when)
+	}
+	if got, _, _, _ := d.com.Snapshot(); !bytes.Equal(got, wantQC) {
+		t.Fatal("quality-control memory differs " + when)
+	}
+	return d
 }
 
 // TestApplyMemoryLimit: storage.memory_limit becomes the runtime's soft

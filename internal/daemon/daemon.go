@@ -205,7 +205,8 @@ type daemonMetrics struct {
 	lateRedelivered  prometheus.Counter
 	submitErrors     prometheus.Counter
 	httpRejected     *prometheus.CounterVec
-	air              *prometheus.CounterVec
+	airUsed          prometheus.Counter
+	airDropped       prometheus.Counter
 }
 
 func newDaemonMetrics(reg prometheus.Registerer) *daemonMetrics {
@@ -229,12 +230,11 @@ func newDaemonMetrics(reg prometheus.Registerer) *daemonMetrics {
 			Name: "holomix_alert_submit_errors_total", Help: "Events the alert outbox refused or failed to store."}),
 		httpRejected: prometheus.NewCounterVec(prometheus.CounterOpts{
 			Name: "holomix_http_auth_rejected_total", Help: "HTTP requests refused for missing or wrong credentials."}, []string{"reason"}),
-		air: prometheus.NewCounterVec(prometheus.CounterOpts{
-			Name: "holomix_air_temperatures_total", Help: "Air temperatures from air_topic subscriptions: passed to detection (used) or dropped because detection lagged (dropped). Not stored in InfluxDB."}, []string{"outcome"}),
 	}
-	m.air.WithLabelValues("used")
-	m.air.WithLabelValues("dropped")
-	reg.MustRegister(m.checkpoints, m.checkpointErrors, m.checkpointDur, m.checkpointBytes, m.fed, m.late, m.lateRedelivered, m.submitErrors, m.httpRejected, m.air)
+	air := prometheus.NewCounterVec(prometheus.CounterOpts{
+		Name: "holomix_air_temperatures_total", Help: "Air temperatures from air_topic subscriptions: passed to detection (used) or dropped because detection lagged (dropped). Not stored in InfluxDB."}, []string{"outcome"})
+	m.airUsed, m.airDropped = air.WithLabelValues("used"), air.WithLabelValues("dropped")
+	reg.MustRegister(m.checkpoints, m.checkpointErrors, m.checkpointDur, m.checkpointBytes, m.fed, m.late, m.lateRedelivered, m.submitErrors, m.httpRejected, air)
 	return m
 }
 
@@ -686,9 +686,9 @@ func chunksOf(b *bolt.Bucket, name []byte) iter.Seq2[string, []byte] {
 func (d *daemon) onAir(site string, t time.Time, c float64) {
 	select {
 	case d.air <- AirTemp{Site: site, Time: t, C: c}:
-		d.dm.air.WithLabelValues("used").Inc()
+		d.dm.airUsed.Inc()
 	default:
-		d.dm.air.WithLabelValues("dropped").Inc()
+		d.dm.airDropped.Inc()
 		d.log.Warn("air temperature dropped: detection is busy", "site", site)
 	}
 }

@@ -67,6 +67,21 @@ func listeningInodes(port int) (map[string]bool, error) {
 // errPortTaken: the server exited because another process holds its port.
 var errPortTaken = errors.New("port taken by another process")
 
+// portAttempts bounds how often a server is started on fresh ports after
+// another process took the one picked for it.
+const portAttempts = 5
+
+// onFreshPorts runs try (which picks fresh ports and starts a server) again
+// while it fails with errPortTaken, at most portAttempts times.
+func onFreshPorts[T any](try func() (T, error)) (T, error) {
+	for attempt := 1; ; attempt++ {
+		v, err := try()
+		if err == nil || !errors.Is(err, errPortTaken) || attempt == portAttempts {
+			return v, err
+		}
+	}
+}
+
 // waitOwnListeners waits until the process listens on every port itself and
 // ready (if not nil) answers true. A process that exits meanwhile is an
 // error; errPortTaken when its log says a port was in use, so that the

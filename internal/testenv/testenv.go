@@ -229,17 +229,8 @@ func newMosquitto(dir string, o MosquittoOptions) (*Mosquitto, error) {
 	if err != nil {
 		return nil, err
 	}
-	for attempt := 1; ; attempt++ {
-		m, err := tryMosquitto(bin, dir, o)
-		if err == nil || !errors.Is(err, errPortTaken) || attempt == portAttempts {
-			return m, err
-		}
-	}
+	return onFreshPorts(func() (*Mosquitto, error) { return tryMosquitto(bin, dir, o) })
 }
-
-// portAttempts bounds how often a server is started on fresh ports after
-// another process took the one picked for it.
-const portAttempts = 5
 
 func tryMosquitto(bin, dir string, o MosquittoOptions) (*Mosquitto, error) {
 	port, err := freePort()
@@ -460,12 +451,7 @@ func StartInfluxConfig(t testing.TB, mk InfluxConfig) *Influx {
 // another process took them first; with setup it creates the admin user
 // (o.Auth) and the database.
 func startInflux(bin, dir string, o InfluxOptions, mk InfluxConfig, setup bool) (*Influx, error) {
-	for attempt := 1; ; attempt++ {
-		in, err := tryInflux(bin, dir, o, mk, setup)
-		if err == nil || !errors.Is(err, errPortTaken) || attempt == portAttempts {
-			return in, err
-		}
-	}
+	return onFreshPorts(func() (*Influx, error) { return tryInflux(bin, dir, o, mk, setup) })
 }
 
 func tryInflux(bin, dir string, o InfluxOptions, mk InfluxConfig, setup bool) (*Influx, error) {
