@@ -131,24 +131,27 @@ func TestHungReceiverDoesNotBlockOthers(t *testing.T) {
 	waitFor(t, 5*time.Second, "retry counted", func() bool {
 		return metricValue(t, reg, "holomix_alert_retries_total", "receiver", "slow") >= 1
 	})
-	pend, err := d.Pending()
-	if err != nil {
-		t.Fatal(err)
-	}
-	var found bool
-	for _, p := range pend {
-		if p.Receiver == "slow" {
-			found = true
-			if !strings.Contains(p.LastError, "no answer within 300ms") {
-				t.Errorf("slow delivery last error = %q, want the timeout", p.LastError)
+	// The counter moves when the attempt ends; its result reaches the outbox
+	// with the next group commit (up to commitLinger later), so wait for it.
+	var pend []Delivery
+	waitFor(t, 5*time.Second, "the timeout recorded in the outbox", func() bool {
+		var err error
+		if pend, err = d.Pending(); err != nil {
+			t.Fatal(err)
+		}
+		for _, p := range pend {
+			if p.Receiver == "slow" && p.LastError != "" {
+				return true
 			}
 		}
+		return false
+	})
+	for _, p := range pend {
 		if p.Receiver != "slow" {
 			t.Errorf("delivery to %s still pending", p.Receiver)
+		} else if !strings.Contains(p.LastError, "no answer within 300ms") {
+			t.Errorf("slow delivery last error = %q, want the timeout", p.LastError)
 		}
-	}
-	if !found {
-		t.Errorf("the hung receiver's delivery is not pending: %+v", pend)
 	}
 }
 
