@@ -12,14 +12,14 @@ import (
 	"time"
 
 	"github.com/prometheus/client_golang/prometheus"
-	"go.uber.org/goleak"
 
 	"holomix/config"
 	"holomix/detect"
+	"holomix/internal/testenv"
 )
 
 func TestMain(m *testing.M) {
-	goleak.VerifyTestMain(m)
+	testenv.MainNoLeaks(m)
 }
 
 // fakeClock is a manual clock for the dispatcher's wall time and timers.

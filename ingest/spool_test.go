@@ -467,7 +467,12 @@ func TestCommitterQCDuplicatesAndAcks(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	spWaitFor(t, "six acknowledgements", 5*time.Second, func() bool { return len(rec.list()) == 6 })
+	// OnCommit is called after the batch's acknowledgements: wait for both.
+	spWaitFor(t, "six acknowledgements and the commit reported", 5*time.Second, func() bool {
+		cmu.Lock()
+		defer cmu.Unlock()
+		return len(rec.list()) == 6 && len(commits) > 0 && commits[len(commits)-1] >= 5
+	})
 	if got := strings.Join(rec.list(), ","); got != "m1,m2,m3,m4,m5,m6" {
 		t.Fatalf("acknowledgement order %s", got)
 	}

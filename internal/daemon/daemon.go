@@ -944,12 +944,16 @@ func (d *daemon) feedAll(ctx context.Context) error {
 		if err := d.sink.err; err != nil {
 			return fmt.Errorf("daemon: alert outbox: %w", err)
 		}
-		d.dm.fed.Add(float64(len(buf)))
 		if len(d.sink.lines) > 0 {
 			if err := d.spoolDerived(ctx); err != nil {
 				return err
 			}
+			if d.wr != nil {
+				d.wr.Notify() // derived points go out now, not at the writer's next idle tick
+			}
 		}
+		// Counted once the readings' derived points are in the spool.
+		d.dm.fed.Add(float64(len(buf)))
 	}
 }
 

@@ -357,12 +357,15 @@ func e2eProfiles(n int, t0 time.Time) []e2eMsg {
 }
 
 // e2ePublisher publishes at QoS 1 with a window of outstanding messages,
-// retrying every publish that is not acknowledged (error or timeout) until it
-// is: it counts acknowledged publishes.
+// retrying every publish that is not acknowledged (error or no PUBACK within
+// resendAfter) until it is: it counts acknowledged publishes. A resend after
+// a slow PUBACK is a real second copy, so tests that restart nothing and count
+// duplicates give it a long resendAfter.
 type e2ePublisher struct {
-	c     mqtt.Client
-	acked atomic.Int64
-	tries atomic.Int64
+	c           mqtt.Client
+	resendAfter time.Duration
+	acked       atomic.Int64
+	tries       atomic.Int64
 }
 
 func newE2EPublisher(t testing.TB, broker, id string) *e2ePublisher {
@@ -375,7 +378,7 @@ func newE2EPublisher(t testing.TB, broker, id string) *e2ePublisher {
 		t.Fatalf("publisher connect: %v", tok.Error())
 	}
 	t.Cleanup(func() { c.Disconnect(100) })
-	return &e2ePublisher{c: c}
+	return &e2ePublisher{c: c, resendAfter: 3 * time.Second}
 }
 
 // publish sends msgs (window outstanding at once) and returns when every one
@@ -407,7 +410,7 @@ func (p *e2ePublisher) publish(t testing.TB, msgs []e2eMsg, window int, limit ti
 		}
 		h := q[0]
 		q = q[1:]
-		if !h.tok.WaitTimeout(time.Until(h.at.Add(3*time.Second))) || h.tok.Error() != nil {
+		if !h.tok.WaitTimeout(time.Until(h.at.Add(p.resendAfter))) || h.tok.Error() != nil {
 			retry = append(retry, h.i)
 			continue
 		}
@@ -422,11 +425,19 @@ func TestE2EStoresEveryReading(t *testing.T) {
 	e.start()
 	msgs := e2eReadings(20000, time.Now().UTC().Add(-30*24*time.Hour).Truncate(time.Hour))
 	pub := newE2EPublisher(t, e.mq.URL, "e2e-pub")
+	pub.resendAfter = 60 * time.Second // nothing is restarted: a resend would be the test's own duplicate
 	start := time.Now()
 	pub.publish(t, msgs, 200, 120*time.Second)
 	e.waitCount(20000, 120*time.Second)
 	t.Logf("20,000 readings published and stored in %v", time.Since(start).Round(time.Millisecond))
-	m := e.metrics()
+	// The stored counter moves after the spool has marked InfluxDB's answer
+	// (an fsync per batch), a little after the points are queryable.
+	var m map[string]float64
+	for deadline := time.Now().Add(30 * time.Second); ; time.Sleep(50 * time.Millisecond) {
+		if m = e.metrics(); m["holomix_readings_stored_total"] >= 20000 || time.Now().After(deadline) {
+			break
+		}
+	}
 	if m["holomix_readings_duplicate_total"] != 0 || m["holomix_readings_spooled_total"] != 20000 || m["holomix_readings_stored_total"] != 20000 {
 		t.Fatalf("metrics: duplicates %v, spooled %v, stored %v", m["holomix_readings_duplicate_total"], m["holomix_readings_spooled_total"], m["holomix_readings_stored_total"])
 	}
@@ -528,8 +539,10 @@ func TestE2EBrokerRestart(t *testing.T) {
 		defer close(published)
 		pub.publish(t, msgs, 200, 180*time.Second)
 	}()
-	for pub.acked.Load() < n/3 {
-		time.Sleep(10 * time.Millisecond)
+	for deadline := time.Now().Add(60 * time.Second); pub.acked.Load() < n/3; time.Sleep(10 * time.Millisecond) {
+		if time.Now().After(deadline) {
+			t.Fatalf("only %d of %d publishes acknowledged after 60 s\n%s", pub.acked.Load(), n, e.log.tail())
+		}
 	}
 	e.mq.Stop()
 	time.Sleep(time.Second)
@@ -616,11 +629,16 @@ func TestE2ESigtermMidStream(t *testing.T) {
 		}
 		time.Sleep(10 * time.Millisecond)
 	}
-	code, took := e.term(6 * time.Second)
-	if code != 0 || took > 5*time.Second {
-		t.Fatalf("SIGTERM under load: exit %d after %v (want 0 within 5 s)", code, took)
+	// The 5 s budget governs the daemon's own drain, which it logs; the
+	// outside view adds process teardown and this test's scheduling, so it
+	// gets 3 s more before the test gives up.
+	code, took := e.term(8 * time.Second)
+	own, logged := testenv.StoppedTook(e.log.String())
+	if code != 0 || !logged || own > 5*time.Second {
+		t.Fatalf("SIGTERM under load: exit %d, drain %v (logged: %v), %v from the outside (want 0, drained within 5 s)\n%s",
+			code, own, logged, took, e.log.tail())
 	}
-	t.Logf("drained and exited 0 in %v under load", took.Round(time.Millisecond))
+	t.Logf("drained in %v and exited 0 (%v from the signal to the exit status) under load", own, took.Round(time.Millisecond))
 	e.start()
 	<-published
 	e.waitCount(n, 120*time.Second)

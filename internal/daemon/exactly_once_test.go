@@ -9,6 +9,7 @@ import (
 	"io"
 	"net"
 	"net/http"
+	"reflect"
 	"sort"
 	"strings"
 	"sync"
@@ -176,8 +177,10 @@ func eoRun(t *testing.T, crash bool) eoOutcome {
 	checkpointed := func() {
 		t.Helper()
 		before := e.metric("holomix_checkpoints_total")
-		for e.metric("holomix_checkpoints_total") == before {
-			time.Sleep(50 * time.Millisecond)
+		for deadline := time.Now().Add(60 * time.Second); e.metric("holomix_checkpoints_total") == before; time.Sleep(50 * time.Millisecond) {
+			if time.Now().After(deadline) {
+				t.Fatalf("no checkpoint within 60 s\n%s", e.log.tail())
+			}
 		}
 	}
 	if crash {
@@ -217,15 +220,32 @@ func eoRun(t *testing.T, crash bool) eoOutcome {
 		}
 		time.Sleep(100 * time.Millisecond)
 	}
-	time.Sleep(time.Second)
+	// After a restart the detected counter also counts re-fed readings, so it
+	// can reach its mark before the last derived points are spooled: read the
+	// outcome until two reads 1.5 s apart (longer than the writer's idle
+	// tick) agree with nothing left in the spool.
 	var out eoOutcome
-	out.alerts = hook.alerts(t)
-	for _, r := range eoQuery(t, e, `SELECT * FROM lake_event`) {
-		out.events = append(out.events, fmt.Sprint(r))
+	read := func() eoOutcome {
+		var o eoOutcome
+		o.alerts = hook.alerts(t)
+		for _, r := range eoQuery(t, e, `SELECT * FROM lake_event`) {
+			o.events = append(o.events, fmt.Sprint(r))
+		}
+		sort.Strings(o.events)
+		if rows := eoQuery(t, e, `SELECT count(schmidt_j_m2) FROM water_column`); len(rows) > 0 {
+			o.columns = int(rows[0][1].(float64))
+		}
+		return o
 	}
-	sort.Strings(out.events)
-	if rows := eoQuery(t, e, `SELECT count(schmidt_j_m2) FROM water_column`); len(rows) > 0 {
-		out.columns = int(rows[0][1].(float64))
+	for deadline, prev := time.Now().Add(30*time.Second), read(); ; prev = out {
+		time.Sleep(1500 * time.Millisecond)
+		out = read()
+		if reflect.DeepEqual(out, prev) && e.metric("holomix_spool_derived_points") == 0 {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("derived points still changing after 30 s: %d columns, %d events", out.columns, len(out.events))
+		}
 	}
 	if c, _ := e.term(5 * time.Second); c != 0 {
 		t.Fatalf("exit %d", c)

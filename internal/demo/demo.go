@@ -331,7 +331,7 @@ func RunReport(ctx context.Context, o Options) (*Report, error) {
 		fctx, cancel := context.WithTimeout(ctx, 10*time.Second)
 		_ = pub.flush(fctx)
 		cancel()
-		rep.Drained = drain(ctx, reg, br, pub)
+		rep.Drained = drain(ctx, reg, br, pub, o.InfluxURL != "")
 		if ctx.Err() != nil {
 			rep.Interrupted = true
 		}
@@ -492,14 +492,15 @@ func feeder(ctx context.Context, s *sim.Sim, sc sim.Scenario, air chan<- daemon.
 }
 
 // drain waits until the daemon has taken in everything published, detected
-// it and delivered the alerts, or drainWait passes. It reports success.
-func drain(ctx context.Context, reg *prometheus.Registry, br *broker, pub *publisher) bool {
+// it, delivered the alerts and (withDB) written it to InfluxDB, or drainWait
+// passes. It reports success.
+func drain(ctx context.Context, reg *prometheus.Registry, br *broker, pub *publisher, withDB bool) bool {
 	deadline := time.Now().Add(drainWait)
 	stable := 0
 	for time.Now().Before(deadline) {
 		m := gather(reg)
 		if m.messages >= pub.messages.Load()-br.dropped() && m.acksPending == 0 && br.backlog() == 0 &&
-			m.detected >= m.spooled && m.pending == 0 {
+			m.detected >= m.spooled && m.pending == 0 && (!withDB || m.stored >= m.spooled) {
 			stable++
 			if stable >= 3 {
 				return true

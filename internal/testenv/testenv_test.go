@@ -16,21 +16,21 @@ func TestMosquittoRoundTrip(t *testing.T) {
 	m := StartMosquitto(t, MosquittoOptions{})
 	got := make(chan string, 1)
 	sub := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(m.URL).SetClientID("testenv-sub"))
-	if tok := sub.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+	if tok := sub.Connect(); !tok.WaitTimeout(15*time.Second) || tok.Error() != nil {
 		t.Fatalf("connect subscriber: %v", tok.Error())
 	}
 	defer sub.Disconnect(100)
 	if tok := sub.Subscribe("lakes/+/temp/#", 1, func(_ mqtt.Client, msg mqtt.Message) {
 		got <- msg.Topic() + " " + string(msg.Payload())
-	}); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+	}); !tok.WaitTimeout(15*time.Second) || tok.Error() != nil {
 		t.Fatalf("subscribe: %v", tok.Error())
 	}
 	pub := mqtt.NewClient(mqtt.NewClientOptions().AddBroker(m.URL).SetClientID("testenv-pub"))
-	if tok := pub.Connect(); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+	if tok := pub.Connect(); !tok.WaitTimeout(15*time.Second) || tok.Error() != nil {
 		t.Fatalf("connect publisher: %v", tok.Error())
 	}
 	defer pub.Disconnect(100)
-	if tok := pub.Publish("lakes/fenwater/temp/5", 1, false, "4.02"); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+	if tok := pub.Publish("lakes/fenwater/temp/5", 1, false, "4.02"); !tok.WaitTimeout(15*time.Second) || tok.Error() != nil {
 		t.Fatalf("publish: %v", tok.Error())
 	}
 	select {
@@ -39,8 +39,8 @@ func TestMosquittoRoundTrip(t *testing.T) {
 			t.Fatalf("received %q", s)
 		}
 		t.Logf("mosquitto round trip on %s: %s", m.URL, s)
-	case <-time.After(5 * time.Second):
-		t.Fatal("message not received within 5 s")
+	case <-time.After(15 * time.Second):
+		t.Fatal("message not received within 15 s")
 	}
 }
 

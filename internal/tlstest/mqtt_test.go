@@ -74,11 +74,11 @@ func connect(t *testing.T, m config.MQTT) (mqtt.Client, error) {
 func roundTrip(t *testing.T, c mqtt.Client) {
 	t.Helper()
 	got := make(chan string, 1)
-	if tok := c.Subscribe("buoys/+/chain", 1, func(_ mqtt.Client, msg mqtt.Message) { got <- string(msg.Payload()) }); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+	if tok := c.Subscribe("buoys/+/chain", 1, func(_ mqtt.Client, msg mqtt.Message) { got <- string(msg.Payload()) }); !tok.WaitTimeout(15*time.Second) || tok.Error() != nil {
 		t.Fatalf("subscribe: %v", tok.Error())
 	}
 	payload := `{"time":"2026-11-20T06:00:00Z","depth_m":4,"temp_c":4.02}`
-	if tok := c.Publish("buoys/fenwater/chain", 1, false, payload); !tok.WaitTimeout(5*time.Second) || tok.Error() != nil {
+	if tok := c.Publish("buoys/fenwater/chain", 1, false, payload); !tok.WaitTimeout(15*time.Second) || tok.Error() != nil {
 		t.Fatalf("publish: %v", tok.Error())
 	}
 	select {
@@ -86,8 +86,8 @@ func roundTrip(t *testing.T, c mqtt.Client) {
 		if s != payload {
 			t.Fatalf("received %q, want %q", s, payload)
 		}
-	case <-time.After(5 * time.Second):
-		t.Fatal("message not received over the connection within 5 s")
+	case <-time.After(15 * time.Second):
+		t.Fatal("message not received over the connection within 15 s")
 	}
 }
 

@@ -39,7 +39,8 @@ const (
 
 // Delivery is one request the receiver got.
 type Delivery struct {
-	At        time.Time
+	At        time.Time // when the request arrived
+	Sent      time.Time // the sender's webhook-timestamp header (whole seconds), zero if absent
 	WebhookID string
 	Answer    int // HTTP status the receiver answered
 	ID        string
@@ -171,6 +172,9 @@ func (h *Hook) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 	}
 	d := Delivery{At: at, WebhookID: r.Header.Get("webhook-id"), ID: p.ID, EpisodeID: p.EpisodeID, Site: p.Site.ID,
 		Kind: p.Kind, Status: p.Status, EventTime: p.EventTime.UTC()}
+	if sec, err := strconv.ParseInt(r.Header.Get("webhook-timestamp"), 10, 64); err == nil {
+		d.Sent = time.Unix(sec, 0).UTC()
+	}
 	h.mu.Lock()
 	mode, ra, onOK := h.mode, h.retryAfter, h.onOK
 	switch mode {
@@ -227,7 +231,10 @@ type AlertTally struct {
 	Unexpected []string
 	Episodes   int // distinct episode ids accepted
 	// Failed answers (5xx, 429) the receiver gave on purpose, and the
-	// shortest gap between a 429 and the next attempt of the same message.
+	// shortest gap between a 429 and the next attempt of the same message,
+	// by the sender's own webhook-timestamp (whole seconds, taken when each
+	// attempt starts, so a wait of Retry-After seconds shows as at least that
+	// many exactly; arrival times would add each request's own latency).
 	Refused          int
 	MinRetryAfterGap time.Duration
 	Throttled        int
@@ -253,7 +260,7 @@ func Tally(deliveries []Delivery, want []ExpectedAlert) AlertTally {
 	t.MinRetryAfterGap = -1
 	for _, d := range deliveries {
 		if at, ok := lastThrottle[d.WebhookID]; ok {
-			if gap := d.At.Sub(at); t.MinRetryAfterGap < 0 || gap < t.MinRetryAfterGap {
+			if gap := d.Sent.Sub(at); t.MinRetryAfterGap < 0 || gap < t.MinRetryAfterGap {
 				t.MinRetryAfterGap = gap
 			}
 			delete(lastThrottle, d.WebhookID)
@@ -262,7 +269,7 @@ func Tally(deliveries []Delivery, want []ExpectedAlert) AlertTally {
 			t.Refused++
 			if d.Answer == http.StatusTooManyRequests {
 				t.Throttled++
-				lastThrottle[d.WebhookID] = d.At
+				lastThrottle[d.WebhookID] = d.Sent
 			}
 			continue
 		}

@@ -3,10 +3,10 @@ package rig
 import (
 	"testing"
 
-	"go.uber.org/goleak"
+	"holomix/internal/testenv"
 )
 
 // TestMain fails the package's tests when any goroutine outlives them.
 func TestMain(m *testing.M) {
-	goleak.VerifyTestMain(m)
+	testenv.MainNoLeaks(m)
 }

@@ -177,7 +177,7 @@ func TestTally(t *testing.T) {
 	want := []ExpectedAlert{{Site: "a", Kind: "intake_change", Status: "firing", Time: at},
 		{Site: "b", Kind: "intake_change", Status: "firing", Time: at}}
 	d := func(wid, ep, site string, ans int, t0 time.Time) Delivery {
-		return Delivery{At: t0, WebhookID: wid, Answer: ans, EpisodeID: ep, Site: site, Kind: "intake_change", Status: "firing", EventTime: at}
+		return Delivery{At: t0, Sent: t0.Truncate(time.Second), WebhookID: wid, Answer: ans, EpisodeID: ep, Site: site, Kind: "intake_change", Status: "firing", EventTime: at}
 	}
 	now := time.Now()
 	got := Tally([]Delivery{
