@@ -948,9 +948,6 @@ func (d *daemon) feedAll(ctx context.Context) error {
 			if err := d.spoolDerived(ctx); err != nil {
 				return err
 			}
-			if d.wr != nil {
-				d.wr.Notify() // derived points go out now, not at the writer's next idle tick
-			}
 		}
 		// Counted once the readings' derived points are in the spool.
 		d.dm.fed.Add(float64(len(buf)))
