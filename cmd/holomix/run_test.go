@@ -61,9 +61,12 @@ log:
 	t.Cleanup(func() { _ = cmd.Process.Kill() })
 	lines := make(chan map[string]any, 100)
 	scanDone := make(chan error, 1)
+	var raw strings.Builder // the whole log; read only after scanDone
 	go func() {
 		sc := bufio.NewScanner(stderr)
 		for sc.Scan() {
+			raw.Write(sc.Bytes())
+			raw.WriteByte('\n')
 			var m map[string]any
 			if err := json.Unmarshal(sc.Bytes(), &m); err != nil {
 				scanDone <- fmt.Errorf("log line is not JSON: %q", sc.Text())
@@ -158,14 +161,7 @@ log:
 	// An idle daemon drains at once: its own account of the stop (slog writes
 	// the duration in nanoseconds) must be short; the outside view adds
 	// process teardown and this test's scheduling.
-	var own time.Duration
-	logged := false
-	for _, m := range all {
-		if m["msg"] == "stopped" {
-			ns, _ := m["took"].(float64)
-			own, logged = time.Duration(ns), true
-		}
-	}
+	own, logged := testenv.StoppedTook(raw.String())
 	if !logged {
 		t.Fatalf("no stopped line: %v", all)
 	}

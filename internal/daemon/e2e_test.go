@@ -285,6 +285,17 @@ func e2eCount(t testing.TB, in *testenv.Influx, where string) int {
 	return int(res.Results[0].Series[0].Values[0][1].(float64))
 }
 
+// waitFor polls cond until it holds, or fails the test with the daemon's
+// log tail after d.
+func (e *e2eEnv) waitFor(what string, d time.Duration, cond func() bool) {
+	e.t.Helper()
+	for deadline := time.Now().Add(d); !cond(); time.Sleep(20 * time.Millisecond) {
+		if time.Now().After(deadline) {
+			e.t.Fatalf("no %s within %v\n%s", what, d, e.log.tail())
+		}
+	}
+}
+
 // waitCount waits until exactly want points are stored (and stay so briefly).
 func (e *e2eEnv) waitCount(want int, d time.Duration) {
 	e.t.Helper()
@@ -433,11 +444,10 @@ func TestE2EStoresEveryReading(t *testing.T) {
 	// The stored counter moves after the spool has marked InfluxDB's answer
 	// (an fsync per batch), a little after the points are queryable.
 	var m map[string]float64
-	for deadline := time.Now().Add(30 * time.Second); ; time.Sleep(50 * time.Millisecond) {
-		if m = e.metrics(); m["holomix_readings_stored_total"] >= 20000 || time.Now().After(deadline) {
-			break
-		}
-	}
+	e.waitFor("stored counter at 20,000", 30*time.Second, func() bool {
+		m = e.metrics()
+		return m["holomix_readings_stored_total"] >= 20000
+	})
 	if m["holomix_readings_duplicate_total"] != 0 || m["holomix_readings_spooled_total"] != 20000 || m["holomix_readings_stored_total"] != 20000 {
 		t.Fatalf("metrics: duplicates %v, spooled %v, stored %v", m["holomix_readings_duplicate_total"], m["holomix_readings_spooled_total"], m["holomix_readings_stored_total"])
 	}
@@ -539,11 +549,7 @@ func TestE2EBrokerRestart(t *testing.T) {
 		defer close(published)
 		pub.publish(t, msgs, 200, 180*time.Second)
 	}()
-	for deadline := time.Now().Add(60 * time.Second); pub.acked.Load() < n/3; time.Sleep(10 * time.Millisecond) {
-		if time.Now().After(deadline) {
-			t.Fatalf("only %d of %d publishes acknowledged after 60 s\n%s", pub.acked.Load(), n, e.log.tail())
-		}
-	}
+	e.waitFor("third of the publishes acknowledged", 60*time.Second, func() bool { return pub.acked.Load() >= n/3 })
 	e.mq.Stop()
 	time.Sleep(time.Second)
 	e.mq.Start(t)

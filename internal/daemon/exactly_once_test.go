@@ -177,11 +177,7 @@ func eoRun(t *testing.T, crash bool) eoOutcome {
 	checkpointed := func() {
 		t.Helper()
 		before := e.metric("holomix_checkpoints_total")
-		for deadline := time.Now().Add(60 * time.Second); e.metric("holomix_checkpoints_total") == before; time.Sleep(50 * time.Millisecond) {
-			if time.Now().After(deadline) {
-				t.Fatalf("no checkpoint within 60 s\n%s", e.log.tail())
-			}
-		}
+		e.waitFor("checkpoint", 60*time.Second, func() bool { return e.metric("holomix_checkpoints_total") != before })
 	}
 	if crash {
 		// Crash 1: checkpoint before the change, let the intake_change
